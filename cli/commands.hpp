@@ -1,0 +1,13 @@
+// Subcommands of the `spinfer` command. Each lives in its own cmd_<verb>.cpp, registers its
+// options on a CLI11 subcommand and runs library calls only (no numerics here).
+#pragma once
+
+#include <CLI/CLI.hpp>
+
+#include "common.hpp"
+
+namespace spinfer::cli {
+
+// (subcommands are added here as they land)
+
+}  // namespace spinfer::cli

@@ -1,0 +1,50 @@
+// Shared pieces of the command line: exit codes, logging to stderr, common options.
+#pragma once
+
+#include <functional>
+#include <string>
+#include <vector>
+
+#include <CLI/CLI.hpp>
+
+namespace spinfer::cli {
+
+/// Documented exit codes (README, "Exit codes").
+enum ExitCode : int {
+  kOk = 0,
+  kFailure = 1,       ///< unexpected internal failure
+  kUsage = 2,         ///< bad command line
+  kBadInput = 65,     ///< input data rejected (non-binary values, ragged rows, ...)
+  kFileError = 66,    ///< a file cannot be opened, read or written, or exists without --force
+  kNumerical = 70,    ///< no finite answer (singular matrix, divergence)
+};
+
+/// Options every subcommand shares.
+struct Common {
+  int threads = 0;          ///< 0 = automatic
+  std::uint64_t seed = 0;
+  std::string out;
+  bool force = false;
+  bool quiet = false;
+  std::string log_format = "plain";  ///< plain | json
+};
+
+struct Context {
+  Common common;
+  std::vector<std::string> argv;           ///< the full command line, for provenance
+  std::function<int()> run;                ///< set by the chosen subcommand
+};
+
+/// Adds --threads/--seed/--out/--force/--quiet/--log-format to a subcommand.
+void add_common_options(CLI::App& sub, Common& c, bool with_out = true);
+
+/// Log a message on stderr (plain "spinfer: ..." line or one JSON object per line).
+void log_info(const Context& ctx, const std::string& event, const std::string& message);
+
+/// Print the final machine-readable summary line on stdout (a JSON object).
+void print_summary(const std::string& json_line);
+
+/// Refuse to overwrite an existing output unless --force (throws spinfer::FileError).
+void check_output_path(const std::string& path, bool force);
+
+}  // namespace spinfer::cli
