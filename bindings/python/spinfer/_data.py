@@ -14,13 +14,15 @@ def as_matrix(X, convention: Optional[str] = None, copy: bool = False, weights=N
     A C-contiguous ``uint8`` or ``bool`` array holding 0/1 is used without a copy. Any other dtype
     (ints, floats holding 0/1 or -1/+1) or layout needs ``copy=True``; otherwise ``ValueError``.
     ``convention`` is ``"binary"`` ({0,1}), ``"spin"`` ({-1,+1}) or None to detect it from the values.
-    A pandas DataFrame's column names become unit names.
+    A pandas DataFrame's column names become unit names; DataFrames are always copied, because
+    pandas stores columns separately.
     """
     if isinstance(X, _core.SpinMatrix):
         return X
     if names is None and hasattr(X, "columns") and hasattr(X, "to_numpy"):
         names = [str(c) for c in X.columns]
         X = X.to_numpy()
+        copy = True
     X = np.asarray(X)
     return _core.matrix(X, convention, copy, weights, None if names is None else list(names))
 
