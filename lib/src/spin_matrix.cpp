@@ -16,7 +16,17 @@ void check_shape(std::int64_t rows, std::int64_t cols) {
 
 void check_bits(const std::uint8_t* p, std::int64_t rows, std::int64_t cols) {
   const std::int64_t n = rows * cols;
-  for (std::int64_t k = 0; k < n; ++k) {
+  // Fast path: any byte above 1 has a bit of 0xFE set; test 8 bytes at a time.
+  std::uint64_t bad = 0;
+  std::int64_t k = 0;
+  for (; k + 8 <= n; k += 8) {
+    std::uint64_t w;
+    std::memcpy(&w, p + k, 8);
+    bad |= w & 0xFEFEFEFEFEFEFEFEULL;
+  }
+  for (; k < n; ++k) bad |= p[k] & 0xFE;
+  if (!bad) return;
+  for (k = 0; k < n; ++k) {
     if (p[k] > 1) {
       throw InputError(where("array", k / cols + 1, k % cols + 1) + "value " +
                        std::to_string(int(p[k])) + " is not a 0/1 activity bit");

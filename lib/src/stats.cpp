@@ -1,6 +1,7 @@
 #include "spinfer/stats.hpp"
 
 #include <algorithm>
+#include <cstring>
 
 #include "spinfer/errors.hpp"
 #include "spinfer/threads.hpp"
@@ -10,32 +11,57 @@ namespace {
 
 constexpr std::int64_t kDenseBlockRows = 2048;
 
+// Appends the indices of the active bytes of a row to `on`, skipping all-zero 8-byte words
+// (most words at low activity).
+void collect_active(const std::uint8_t* r, std::int64_t N, std::vector<std::int32_t>& on) {
+  on.clear();
+  std::int64_t i = 0;
+  for (; i + 8 <= N; i += 8) {
+    std::uint64_t word;
+    std::memcpy(&word, r + i, 8);
+    if (!word) continue;
+    for (int k = 0; k < 8; ++k)
+      if (r[i + k]) on.push_back(std::int32_t(i + k));
+  }
+  for (; i < N; ++i)
+    if (r[i]) on.push_back(std::int32_t(i));
+}
+
 // Sum over rows of w_t x_t x_t^T (upper triangle incl. diagonal), sparse kernel: for each row,
 // increment every pair of its active units. Cost ~ T k^2 / 2 for k active units per row.
-Eigen::MatrixXd pair_counts_sparse(const SpinMatrix& data, int threads) {
+// Unweighted data count in 32-bit integers (half the memory traffic; exact).
+template <typename Acc>
+Eigen::MatrixXd pair_counts_sparse_typed(const SpinMatrix& data, int threads) {
   const std::int64_t N = data.cols();
-  std::vector<Eigen::MatrixXd> partial(static_cast<std::size_t>(resolve_threads(threads)));
+  using AccMatrix = Eigen::Matrix<Acc, Eigen::Dynamic, Eigen::Dynamic>;
+  std::vector<AccMatrix> partial(static_cast<std::size_t>(resolve_threads(threads)));
   parallel_chunks(data.rows(), threads, [&](std::int64_t b, std::int64_t e, int tid) {
-    Eigen::MatrixXd& acc = partial[std::size_t(tid)];
-    acc = Eigen::MatrixXd::Zero(N, N);
-    std::vector<std::int64_t> on;
+    AccMatrix& acc = partial[std::size_t(tid)];
+    acc = AccMatrix::Zero(N, N);
+    std::vector<std::int32_t> on;
     on.reserve(std::size_t(N));
     for (std::int64_t t = b; t < e; ++t) {
-      const std::uint8_t* r = data.row(t);
-      on.clear();
-      for (std::int64_t i = 0; i < N; ++i)
-        if (r[i]) on.push_back(i);
-      const double w = data.weight(t);
-      for (std::size_t a = 0; a < on.size(); ++a) {
-        double* col = acc.data() + on[a] * N;  // column-major: acc(i, j) at j*N + i
-        for (std::size_t c = 0; c <= a; ++c) col[on[c]] += w;  // acc(on[c], on[a]), on[c] <= on[a]
+      collect_active(data.row(t), N, on);
+      const Acc w = data.weighted() ? Acc(data.weight(t)) : Acc(1);
+      const std::size_t k = on.size();
+      for (std::size_t a = 0; a < k; ++a) {
+        Acc* col = acc.data() + std::int64_t(on[a]) * N;  // column on[a]: acc(i, on[a]) at col[i]
+        for (std::size_t c = 0; c <= a; ++c) col[on[c]] += w;  // on[c] <= on[a]: upper triangle
       }
     }
   });
   Eigen::MatrixXd total = Eigen::MatrixXd::Zero(N, N);
   for (auto& p : partial)
-    if (p.size()) total += p;
-  return total;  // upper triangle (row <= col) filled
+    if (p.size()) total += p.template cast<double>();
+  return total;
+}
+
+Eigen::MatrixXd pair_counts_sparse(const SpinMatrix& data, int threads) {
+  // 32-bit counts hold at most 2^32 - 1 rows per thread; longer recordings count in doubles
+  // (still exact: integers below 2^53).
+  if (!data.weighted() && data.rows() < (std::int64_t(1) << 32) - 1)
+    return pair_counts_sparse_typed<std::uint32_t>(data, threads);
+  return pair_counts_sparse_typed<double>(data, threads);
 }
 
 // Dense kernel: blocks of rows converted to floating point, products through BLAS (sgemm when
