@@ -36,9 +36,6 @@ def run_case(name, path, threads, repeat):
     X = np.load(path)
     base = peak_mb()
     best = float("inf")
-    if name != "spinfer":  # touch the pages once so the first timing is not page-fault bound
-        X.astype(np.float32).sum()
-        base = peak_mb()
     for _ in range(repeat):
         t0 = time.perf_counter()
         if name == "spinfer":
