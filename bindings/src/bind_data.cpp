@@ -2,6 +2,7 @@
 #include <optional>
 
 #include "bind.hpp"
+#include "spinfer/bootstrap.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/patterns.hpp"
 #include "spinfer/stats.hpp"
@@ -170,6 +171,34 @@ void bind_data(py::module_& m) {
         return connected_triplets(s, triples, parse_convention(convention), threads);
       }, py::arg("data"), py::arg("triples"), py::arg("convention") = "binary",
       py::arg("threads") = 1);
+
+  m.def("bootstrap_noise", [](const SpinMatrix& s, const std::string& convention,
+                              const std::vector<std::array<std::int64_t, 3>>& triples,
+                              std::int64_t replicates, std::int64_t block_length,
+                              std::uint64_t seed, int threads) {
+        BlockBootstrapOptions o;
+        o.replicates = replicates;
+        o.block_length = block_length;
+        o.seed = seed;
+        o.threads = threads;
+        DataNoise n;
+        {
+          py::gil_scoped_release release;
+          n = bootstrap_noise(s, parse_convention(convention), triples, o);
+        }
+        py::dict d;
+        d["mean_se"] = n.mean_se;
+        d["connected_se"] = n.connected_se;
+        d["count_se"] = n.count_se;
+        d["triplet_se"] = n.triplet_se;
+        d["block_length"] = n.block_length;
+        d["replicates"] = n.replicates;
+        return d;
+      }, py::arg("data"), py::arg("convention") = "binary",
+      py::arg("triples") = std::vector<std::array<std::int64_t, 3>>{}, py::arg("replicates") = 200,
+      py::arg("block_length") = 0, py::arg("seed") = 0, py::arg("threads") = 1);
+
+  m.def("default_block_length", &default_block_length, py::arg("data"));
 
   m.def("unique_patterns", [](const SpinMatrix& s) {
         PatternTable t;

@@ -12,7 +12,7 @@ if _core.__version__ != __version__:  # a stale extension next to newer Python c
         f"{__version__}; rebuild with `pip install .`"
     )
 
-from ._data import as_matrix, moments, active_count_distribution, connected_triplets, unique_patterns  # noqa: E402
+from ._data import as_matrix, moments, active_count_distribution, connected_triplets, unique_patterns, bootstrap_noise  # noqa: E402
 
 
 def build_info() -> str:
@@ -28,4 +28,5 @@ __all__ = [
     "active_count_distribution",
     "connected_triplets",
     "unique_patterns",
+    "bootstrap_noise",
 ]

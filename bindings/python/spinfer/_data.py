@@ -51,3 +51,17 @@ def connected_triplets(X, triples: Sequence[Sequence[int]], convention: str = "b
 def unique_patterns(X, copy: bool = False):
     """Distinct rows (uint8), their counts (or summed weights), and each row's pattern index."""
     return _core.unique_patterns(as_matrix(X, copy=copy))
+
+
+def bootstrap_noise(X, convention: str = "binary", triples=(), replicates: int = 200,
+                    block_length: int = 0, seed: int = 0, threads: int = 1, copy: bool = False):
+    """Block-bootstrap standard errors of means, connected correlations, P(K) and triplets.
+
+    Bins of a recording are correlated in time, so whole blocks of ``block_length`` consecutive
+    samples are resampled (0 = automatic: twice the integrated autocorrelation time of the number
+    of active units). Returns a dict with ``mean_se``, ``connected_se``, ``count_se``,
+    ``triplet_se``, ``block_length`` and ``replicates``.
+    """
+    t = [tuple(int(v) for v in tr) for tr in triples]
+    return _core.bootstrap_noise(as_matrix(X, copy=copy), convention, t, replicates, block_length,
+                                 seed, threads)
