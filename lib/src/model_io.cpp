@@ -54,7 +54,9 @@ Eigen::VectorXd read_vector(const nlohmann::json& j, const std::string& source,
   return v;
 }
 
-Provenance read_provenance(const nlohmann::json& j, const std::string& source) {
+}  // namespace
+
+Provenance provenance_from_json(const nlohmann::json& j, const std::string& source) {
   const std::string name = "provenance";
   if (!j.is_object()) throw InputError(key(source, name) + "expected an object, got " + type_name(j));
   static const std::set<std::string> known = {"method", "l1", "l2", "iterations", "converged",
@@ -114,7 +116,21 @@ Provenance read_provenance(const nlohmann::json& j, const std::string& source) {
   return p;
 }
 
-}  // namespace
+nlohmann::json provenance_to_json(const Provenance& p) {
+  nlohmann::json prov;
+  prov["method"] = p.method;
+  prov["l1"] = number_or_null(p.l1);
+  prov["l2"] = number_or_null(p.l2);
+  prov["iterations"] = p.iterations;
+  prov["converged"] = p.converged;
+  prov["objective"] = number_or_null(p.objective);
+  prov["samples"] = p.samples;
+  prov["units"] = p.units;
+  prov["seed"] = p.seed;
+  prov["version"] = p.version;
+  prov["extra"] = p.extra.is_object() ? p.extra : nlohmann::json::object();
+  return prov;
+}
 
 nlohmann::json model_to_json(const IsingModel& model) {
   validate_model(model, "model");
@@ -134,20 +150,7 @@ nlohmann::json model_to_json(const IsingModel& model) {
   }
   j["fields"] = std::move(fields);
   j["couplings"] = std::move(couplings);
-  const Provenance& p = model.provenance;
-  nlohmann::json prov;
-  prov["method"] = p.method;
-  prov["l1"] = number_or_null(p.l1);
-  prov["l2"] = number_or_null(p.l2);
-  prov["iterations"] = p.iterations;
-  prov["converged"] = p.converged;
-  prov["objective"] = number_or_null(p.objective);
-  prov["samples"] = p.samples;
-  prov["units"] = p.units;
-  prov["seed"] = p.seed;
-  prov["version"] = p.version;
-  prov["extra"] = p.extra.is_object() ? p.extra : nlohmann::json::object();
-  j["provenance"] = std::move(prov);
+  j["provenance"] = provenance_to_json(model.provenance);
   return j;
 }
 
@@ -237,7 +240,7 @@ IsingModel model_from_json(const nlohmann::json& j, const std::string& source) {
                          ", column " + std::to_string(i + 1) + ")");
     }
   }
-  model.provenance = read_provenance(j["provenance"], source);
+  model.provenance = provenance_from_json(j["provenance"], source);
   validate_model(model, source);  // the library's own rules (same as above; kept as the authority)
   return model;
 }

@@ -13,6 +13,18 @@ if _core.__version__ != __version__:  # a stale extension next to newer Python c
     )
 
 from ._data import as_matrix, moments, active_count_distribution, connected_triplets, unique_patterns  # noqa: E402
+from .models import (  # noqa: E402
+    IsingModel,
+    convert_model,
+    exact_statistics,
+    exact_log_partition,
+    exact_state_probabilities,
+    exact_log_likelihood,
+    closed_form_methods,
+    fit_closed_form,
+    save_model,
+    load_model,
+)
 
 
 def build_info() -> str:
@@ -28,4 +40,14 @@ __all__ = [
     "active_count_distribution",
     "connected_triplets",
     "unique_patterns",
+    "IsingModel",
+    "convert_model",
+    "exact_statistics",
+    "exact_log_partition",
+    "exact_state_probabilities",
+    "exact_log_likelihood",
+    "closed_form_methods",
+    "fit_closed_form",
+    "save_model",
+    "load_model",
 ]

@@ -61,6 +61,11 @@ nlohmann::json model_to_json(const IsingModel& model);
 /// InputError for anything that does not follow the schema.
 IsingModel model_from_json(const nlohmann::json& json, const std::string& source);
 
+/// The provenance object alone (the "provenance" value of the schema), both ways; used by front
+/// ends that carry provenance as a dictionary. Non-finite numbers are written as null.
+nlohmann::json provenance_to_json(const Provenance& provenance);
+Provenance provenance_from_json(const nlohmann::json& json, const std::string& source);
+
 /// Writes the model to `path` (one coupling row per line), atomically. InputError for an invalid
 /// model, FileError if the file cannot be written.
 void save_model(const std::string& path, const IsingModel& model);
