@@ -12,7 +12,26 @@ if _core.__version__ != __version__:  # a stale extension next to newer Python c
         f"{__version__}; rebuild with `pip install .`"
     )
 
-from ._data import as_matrix, moments, active_count_distribution, connected_triplets, unique_patterns, bootstrap_noise  # noqa: E402
+from ._data import (  # noqa: E402
+    as_matrix,
+    moments,
+    active_count_distribution,
+    connected_triplets,
+    unique_patterns,
+    bootstrap_noise,
+)
+from .models import (  # noqa: E402
+    IsingModel,
+    convert_model,
+    exact_statistics,
+    exact_log_partition,
+    exact_state_probabilities,
+    exact_log_likelihood,
+    closed_form_methods,
+    fit_closed_form,
+    save_model,
+    load_model,
+)
 
 
 def build_info() -> str:
@@ -29,4 +48,14 @@ __all__ = [
     "connected_triplets",
     "unique_patterns",
     "bootstrap_noise",
+    "IsingModel",
+    "convert_model",
+    "exact_statistics",
+    "exact_log_partition",
+    "exact_state_probabilities",
+    "exact_log_likelihood",
+    "closed_form_methods",
+    "fit_closed_form",
+    "save_model",
+    "load_model",
 ]
