@@ -1,6 +1,8 @@
 // Binning spike events into a binary (bins x units) matrix; see spikes.hpp for the rules.
 #include <algorithm>
 #include <cmath>
+#include <iomanip>
+#include <sstream>
 #include <numeric>
 
 #include "spinfer/csv.hpp"
@@ -19,10 +21,13 @@ double bin_coordinate(double t, double t0, double w) {
   return std::fabs(x - r) <= tol ? r : x;
 }
 
-std::string seconds(double t) {
-  std::string s = std::to_string(t);
-  return s + " s";
+std::string number(double v) {
+  std::ostringstream s;
+  s << std::setprecision(10) << v;
+  return s.str();
 }
+
+std::string seconds(double t) { return number(t) + " s"; }
 
 struct Window {
   double start = 0, stop = 0, width = 0;
@@ -208,7 +213,7 @@ BinnedSpikes bin_spikes(const SpikeTable& table, const BinningOptions& options) 
   }
   if (keep.empty())
     throw InputError(src + ": every unit fires below the minimum rate of " +
-                     std::to_string(options.min_rate_hz) + " Hz");
+                     number(options.min_rate_hz) + " Hz");
 
   std::vector<std::uint8_t> bits(std::size_t(rep.bins_kept) * keep.size());
   std::vector<std::string> names;

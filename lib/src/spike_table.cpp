@@ -2,6 +2,8 @@
 #include <algorithm>
 #include <cctype>
 #include <cmath>
+#include <iomanip>
+#include <sstream>
 #include <unordered_map>
 
 #include "spinfer/csv.hpp"
@@ -55,7 +57,11 @@ Columns find_columns(const std::vector<CsvCell>& cells, const std::string& path,
 
 void check_time(double t, const std::string& where_text) {
   if (!std::isfinite(t)) throw InputError(where_text + "spike time is not finite");
-  if (t < 0) throw InputError(where_text + "spike time " + std::to_string(t) + " is negative");
+  if (t < 0) {
+    std::ostringstream s;
+    s << where_text << "spike time " << std::setprecision(10) << t << " is negative";
+    throw InputError(s.str());
+  }
 }
 
 }  // namespace

@@ -13,6 +13,7 @@ if _core.__version__ != __version__:  # a stale extension next to newer Python c
     )
 
 from ._data import as_matrix, moments, active_count_distribution, connected_triplets, unique_patterns  # noqa: E402
+from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
 
 
 def build_info() -> str:
@@ -28,4 +29,9 @@ __all__ = [
     "active_count_distribution",
     "connected_triplets",
     "unique_patterns",
+    "MatrixFile",
+    "read_matrix",
+    "write_matrix",
+    "read_spikes",
+    "bin_spikes",
 ]
