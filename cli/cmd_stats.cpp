@@ -45,7 +45,7 @@ double mean_pair_correlation(const Moments& mo) {
 }
 
 void print_readable(const SpinMatrix& m, const Eigen::VectorXd& activity, double mean_corr,
-                    const Eigen::VectorXd& pk, const ConstantUnits& constant, bool dropped) {
+                    const Eigen::VectorXd& pk, const std::string& constant, bool dropped) {
   std::ostringstream s;
   s << std::setprecision(4);
   s << "samples: " << m.rows() << "   units: " << m.cols()
@@ -59,8 +59,7 @@ void print_readable(const SpinMatrix& m, const Eigen::VectorXd& activity, double
   for (std::int64_t k = 0; k < std::min<std::int64_t>(pk.size(), 8); ++k)
     s << "  K=" << k << ": " << pk(k);
   s << (pk.size() > 8 ? "  ...\n" : "\n");
-  if (!constant.empty())
-    s << (dropped ? "dropped constant " : "constant ") << constant.describe(m) << "\n";
+  if (!constant.empty()) s << (dropped ? "dropped constant " : "constant ") << constant << "\n";
   std::cerr << s.str();
 }
 
@@ -111,7 +110,8 @@ int run_stats(const Context& ctx, const StatsArgs& a) {
   const Eigen::VectorXd activity = compute_means(shown, Convention::binary, so.threads);
   const Eigen::VectorXd pk = active_count_distribution(shown, so.threads);
   const double mean_corr = mean_pair_correlation(mo);
-  print_readable(shown, activity, mean_corr, pk, constant, a.drop_constant);
+  print_readable(shown, activity, mean_corr, pk, constant.empty() ? "" : constant.describe(m),
+                 a.drop_constant);
   if (!ctx.common.out.empty()) {
     const nlohmann::json j = stats_json(a.data, shown, mo, activity, pk, mean_corr, constant_json);
     write_file_atomically(ctx.common.out, [&](std::ostream& o) { o << j.dump(2) << '\n'; });
