@@ -57,13 +57,23 @@ void bind_io(py::module_& m) {
           py::gil_scoped_release release;
           t = read_spike_table(path);
         }
-        return py::make_tuple(t.unit_ids, py::array(py::cast(t.unit)), py::array(py::cast(t.time)));
+        py::array_t<std::int32_t> unit(py::ssize_t(t.unit.size()));
+        py::array_t<double> time(py::ssize_t(t.time.size()));
+        std::copy(t.unit.begin(), t.unit.end(), unit.mutable_data());
+        std::copy(t.time.begin(), t.time.end(), time.mutable_data());
+        return py::make_tuple(t.unit_ids, unit, time);
       }, py::arg("path"), "(distinct unit ids, per-spike unit index, per-spike time in s).");
 
-  m.def("bin_spikes", [](std::vector<std::string> ids, std::vector<std::int32_t> unit,
-                         std::vector<double> time, double bin_width, const py::object& start,
+  m.def("bin_spikes", [](std::vector<std::string> ids,
+                         const py::array_t<std::int32_t, py::array::c_style | py::array::forcecast>& unit_a,
+                         const py::array_t<double, py::array::c_style | py::array::forcecast>& time_a,
+                         double bin_width, const py::object& start,
                          const py::object& stop, std::vector<std::pair<double, double>> gaps,
                          double min_rate_hz, const std::string& source) {
+        if (unit_a.ndim() != 1 || time_a.ndim() != 1)
+          throw InputError("spikes: unit indices and times must be 1-D arrays");
+        std::vector<std::int32_t> unit(unit_a.data(), unit_a.data() + unit_a.size());
+        std::vector<double> time(time_a.data(), time_a.data() + time_a.size());
         BinningOptions o;
         o.bin_width = bin_width;
         o.start = optional_double(start);

@@ -191,21 +191,27 @@ BinnedSpikes bin_spikes(const SpikeTable& table, const BinningOptions& options) 
     ++unit_spikes[std::size_t(checked.unit[s])];
   }
 
+  // Per-unit active and multi-spike bin counts, in one row-major pass over the counts.
+  std::vector<std::int64_t> active(n_units, 0), multi(n_units, 0);
+  for (std::int64_t r = 0; r < rep.bins_kept; ++r) {
+    const std::uint8_t* c = counts.data() + std::size_t(r) * n_units;
+    for (std::size_t u = 0; u < n_units; ++u) {
+      active[u] += c[u] >= 1;
+      multi[u] += c[u] >= 2;
+    }
+  }
   const double duration = double(rep.bins_kept) * w.width;
-  std::vector<std::int64_t> keep;  // original unit indices, in output order
+  std::vector<std::size_t> keep;  // original unit indices, in output order
   for (std::size_t u : unit_order(checked.unit_ids)) {
     UnitBinning ub;
     ub.id = checked.unit_ids[u];
     ub.spikes = unit_spikes[u];
     ub.rate_hz = double(ub.spikes) / duration;
-    for (std::int64_t r = 0; r < rep.bins_kept; ++r) {
-      const std::uint8_t c = counts[std::size_t(r) * n_units + u];
-      ub.active_bins += c >= 1;
-      ub.multi_spike_bins += c >= 2;
-    }
+    ub.active_bins = active[u];
+    ub.multi_spike_bins = multi[u];
     ub.dropped = ub.rate_hz < options.min_rate_hz;
     if (!ub.dropped) {
-      keep.push_back(std::int64_t(u));
+      keep.push_back(u);
       rep.active_bins += ub.active_bins;
       rep.multi_spike_bins += ub.multi_spike_bins;
     }
@@ -217,10 +223,11 @@ BinnedSpikes bin_spikes(const SpikeTable& table, const BinningOptions& options) 
 
   std::vector<std::uint8_t> bits(std::size_t(rep.bins_kept) * keep.size());
   std::vector<std::string> names;
-  for (std::size_t j = 0; j < keep.size(); ++j) {
-    names.push_back(checked.unit_ids[std::size_t(keep[j])]);
-    for (std::int64_t r = 0; r < rep.bins_kept; ++r)
-      bits[std::size_t(r) * keep.size() + j] = counts[std::size_t(r) * n_units + std::size_t(keep[j])] ? 1 : 0;
+  for (std::size_t u : keep) names.push_back(checked.unit_ids[u]);
+  for (std::int64_t r = 0; r < rep.bins_kept; ++r) {
+    const std::uint8_t* c = counts.data() + std::size_t(r) * n_units;
+    std::uint8_t* out = bits.data() + std::size_t(r) * keep.size();
+    for (std::size_t j = 0; j < keep.size(); ++j) out[j] = c[keep[j]] ? 1 : 0;
   }
   SpinMatrix m(std::move(bits), rep.bins_kept, std::int64_t(keep.size()), Convention::binary);
   m.set_names(std::move(names));

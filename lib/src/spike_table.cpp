@@ -113,10 +113,12 @@ void validate_spike_table(const SpikeTable& t) {
       throw InputError(t.source + ": unit id '" + t.unit_ids[k] + "' is listed twice");
   }
   for (std::size_t k = 0; k < t.time.size(); ++k) {
+    const bool time_ok = std::isfinite(t.time[k]) && t.time[k] >= 0;
+    const bool unit_ok = t.unit[k] >= 0 && std::size_t(t.unit[k]) < t.unit_ids.size();
+    if (time_ok && unit_ok) continue;  // the message is built only on failure
     const std::string at = t.source + ": spike " + std::to_string(k + 1) + ": ";
     check_time(t.time[k], at);
-    if (t.unit[k] < 0 || std::size_t(t.unit[k]) >= t.unit_ids.size())
-      throw InputError(at + "unit index out of range");
+    throw InputError(at + "unit index out of range");
   }
 }
 

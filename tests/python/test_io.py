@@ -208,3 +208,25 @@ def test_failed_write_leaves_no_file(tmp_path):
     with pytest.raises(OSError):
         spinfer.write_matrix(tmp_path / "no-such-dir" / "x.npy", random_bits())
     assert list(tmp_path.iterdir()) == []
+
+
+def test_mutated_npy_and_npz_never_crash(tmp_path):
+    # Random byte flips and cuts (fixed seed) must give a clean ValueError/OSError or a valid read.
+    rng = np.random.default_rng(5)
+    np.save(tmp_path / "ok.npy", random_bits((6, 4)))
+    np.savez_compressed(tmp_path / "ok.npz", x=random_bits((6, 4)))
+    for name in ("ok.npy", "ok.npz"):
+        raw = bytearray((tmp_path / name).read_bytes())
+        for trial in range(150):
+            b = bytearray(raw)
+            for _ in range(rng.integers(1, 4)):
+                b[rng.integers(len(b))] = rng.integers(256)
+            if trial % 3 == 0:
+                b = b[: rng.integers(len(b))]
+            p = tmp_path / ("m" + name[-4:])
+            p.write_bytes(bytes(b))
+            try:
+                r = spinfer.read_matrix(p)
+                assert r.X.ndim == 2
+            except (ValueError, OSError):
+                pass
