@@ -9,5 +9,8 @@
 namespace spinfer::cli {
 
 // (subcommands are added here as they land)
+void add_stats_command(CLI::App& app, Context& ctx);
+void add_bin_command(CLI::App& app, Context& ctx);
+void add_convert_command(CLI::App& app, Context& ctx);
 
 }  // namespace spinfer::cli

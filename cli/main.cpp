@@ -15,6 +15,9 @@ int main(int argc, char** argv) {
   });
   Context ctx;
   ctx.argv.assign(argv, argv + argc);
+  add_stats_command(app, ctx);
+  add_bin_command(app, ctx);
+  add_convert_command(app, ctx);
 
   try {
     app.parse(argc, argv);

@@ -25,4 +25,5 @@ PYBIND11_MODULE(_core, m) {
 
   spinfer::py_bind::bind_data(m);
   spinfer::py_bind::bind_model(m);
+  spinfer::py_bind::bind_io(m);
 }

@@ -32,6 +32,7 @@ from .models import (  # noqa: E402
     save_model,
     load_model,
 )
+from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
 
 
 def build_info() -> str:
@@ -58,4 +59,9 @@ __all__ = [
     "fit_closed_form",
     "save_model",
     "load_model",
+    "MatrixFile",
+    "read_matrix",
+    "write_matrix",
+    "read_spikes",
+    "bin_spikes",
 ]
