@@ -16,7 +16,7 @@ def find_cli():
                   Path(sysconfig.get_path("scripts")) / "spinfer", shutil.which("spinfer")]
     for c in candidates:
         if c and Path(c).is_file() and os.access(c, os.X_OK):
-            return str(c)
+            return str(Path(c).resolve())
     return None
 
 

@@ -9,10 +9,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from conftest import find_cli
+
 REPO = Path(__file__).resolve().parents[2]
-CLI = Path(os.environ.get("SPINFER_CLI", REPO / "build" / "dev" / "spinfer"))
+CLI = Path(find_cli() or "spinfer-not-built")
 pytestmark = pytest.mark.skipif(
-    not CLI.is_file(), reason=f"spinfer command not built at {CLI} (set SPINFER_CLI)")
+    not CLI.is_file(), reason="spinfer command not built (set SPINFER_CLI or build into build/dev)")
 
 
 def run(*args, cwd=None):
