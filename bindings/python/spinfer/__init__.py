@@ -13,6 +13,7 @@ if _core.__version__ != __version__:  # a stale extension next to newer Python c
     )
 
 from ._data import as_matrix, moments, active_count_distribution, connected_triplets, unique_patterns  # noqa: E402
+from .sampling import sample, model_statistics, temperature_scan  # noqa: E402
 
 
 def build_info() -> str:
@@ -28,4 +29,7 @@ __all__ = [
     "active_count_distribution",
     "connected_triplets",
     "unique_patterns",
+    "sample",
+    "model_statistics",
+    "temperature_scan",
 ]
