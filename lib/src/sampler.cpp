@@ -64,6 +64,30 @@ Couplings make_couplings(const IsingModel& m, const std::string& storage, double
   return c;
 }
 
+// ---- acceptance tests ----------------------------------------------------------------------------
+// Both tests first compare u with bounds that need no exponential, from
+// 1 + a + a^2/2 <= e^a <= ... for a >= 0; only draws between the bounds evaluate exp. The answer
+// is the same as the plain test u < p (up to rounding of u at the boundary itself).
+
+/// Heat bath: true (unit active) with probability 1 / (1 + exp(-x)), given u uniform in [0, 1).
+inline bool heat_bath(double x, double u) {
+  const double a = std::abs(x);
+  const double q = 1.0 + a * (1.0 + 0.5 * a);  // q <= e^a, so q / (1 + q) <= sigma(a)
+  if (x >= 0) {
+    if (u * (1.0 + q) < q) return true;          // u < q/(1+q) <= sigma(x)
+  } else {
+    if (u * (1.0 + q) >= 1.0) return false;      // u >= 1/(1+q) >= sigma(x)
+  }
+  return u * (1.0 + std::exp(-x)) < 1.0;
+}
+
+/// Metropolis: true with probability exp(-y) for y > 0, given u uniform in [0, 1).
+inline bool metropolis(double y, double u) {
+  if (u < 1.0 - y) return true;                         // 1 - y <= e^-y
+  if (u * (1.0 + y * (1.0 + 0.5 * y)) >= 1.0) return false;  // e^-y <= 1/(1 + y + y^2/2)
+  return u < std::exp(-y);
+}
+
 // ---- replicas and chains -----------------------------------------------------------------------
 
 struct Replica {
@@ -191,14 +215,13 @@ class Engine {
       const double Hk = H[k];
       double delta;  // new value - old value, 0 when unchanged
       if constexpr (kGibbs) {
-        // Heat bath: P(active | rest) = 1 / (1 + exp(-beta (hi - lo) H_k)).
-        const double p_active = 1.0 / (1.0 + std::exp(-beta * span * Hk));
-        const double next = rng.uniform() < p_active ? hi_ : lo_;
+        // Heat bath: P(active | rest) = 1 / (1 + exp(-x)), x = beta (hi - lo) H_k.
+        const double next = heat_bath(beta * span * Hk, rng.uniform()) ? hi_ : lo_;
         delta = next - v[k];
       } else {
         const double d = both - 2.0 * v[k];  // the flip
         const double dE = -d * Hk;
-        delta = (dE <= 0.0 || rng.uniform() < std::exp(-beta * dE)) ? d : 0.0;
+        delta = (dE <= 0.0 || metropolis(beta * dE, rng.uniform())) ? d : 0.0;
       }
       if (delta != 0.0) {
         ++flips;
@@ -230,9 +253,10 @@ double seconds_since(std::chrono::steady_clock::time_point t0) {
   return std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
 }
 
-/// Runs chains[c] for steps[c] steps each, in rounds of about a few million updates per thread;
-/// `after(c, i)` runs after step i of chain c. The progress callback runs between rounds on the
-/// calling thread; returning false throws Interrupted.
+/// Runs chains[c] for steps[c] steps each; `after(c, i)` runs after step i of chain c. Work goes
+/// in rounds sized from the measured speed to last about 0.2 s; between rounds the progress
+/// callback runs on the calling thread (returning false throws Interrupted). Round boundaries
+/// never change results: each chain only depends on its own stream.
 class Driver {
  public:
   Driver(const Engine& e, std::vector<Chain>& chains, const SamplerOptions& o)
@@ -242,14 +266,14 @@ class Driver {
   void run(const std::string& stage, const std::vector<std::int64_t>& steps,
            const std::function<void(std::size_t, std::int64_t)>& after) {
     const std::int64_t C = std::int64_t(chains_.size());
-    const double per_step = double(engine_.units()) * double(engine_.slots());
-    const double concurrent = double(std::min<std::int64_t>(C, threads_));
-    const std::int64_t round = std::max<std::int64_t>(
-        1, std::int64_t(4.0e6 * concurrent / (per_step * double(C))));
+    const double updates_per_step = double(engine_.units()) * double(engine_.slots()) * double(C);
+    // First round: about 2e5 single-unit updates in all, then scale to the measured rate.
+    std::int64_t round = std::max<std::int64_t>(1, std::int64_t(2e5 / updates_per_step));
     std::int64_t longest = 0;
     for (auto s : steps) longest = std::max(longest, s);
-    for (std::int64_t begin = 0; begin < longest; begin += round) {
+    for (std::int64_t begin = 0; begin < longest;) {
       const std::int64_t end = std::min(longest, begin + round);
+      const auto t = std::chrono::steady_clock::now();
       parallel_for(C, threads_, [&](std::int64_t c) {
         Chain& ch = chains_[std::size_t(c)];
         const std::int64_t stop = std::min(end, steps[std::size_t(c)]);
@@ -258,6 +282,10 @@ class Driver {
           after(std::size_t(c), i);
         }
       });
+      const double took = seconds_since(t);
+      const double factor = took > 0 ? std::clamp(0.2 / took, 0.25, 4.0) : 4.0;
+      round = std::max<std::int64_t>(1, std::int64_t(double(end - begin) * factor));
+      begin = end;
       report(stage, longest, end);
     }
   }

@@ -67,7 +67,7 @@ struct SamplerOptions {
   double sparse_density_threshold = 0.1;
   std::uint64_t seed = 0;
   int threads = 1;                     ///< <= 0: automatic (resolve_threads)
-  ProgressCallback progress;           ///< called between rounds of sweeps on the calling thread
+  ProgressCallback progress;           ///< called about every 0.2 s, on the calling thread
 };
 
 struct SamplerDiagnostics {
