@@ -43,14 +43,31 @@ std::vector<std::pair<std::int64_t, std::int64_t>> batch_ranges(const std::vecto
   return out;
 }
 
-/// Standard error of the mean of per-batch values (one row per batch).
-Eigen::VectorXd batch_error(const Eigen::MatrixXd& per_batch) {
-  const Eigen::Index B = per_batch.rows();
-  if (B < 2) return Eigen::VectorXd::Constant(per_batch.cols(), kNaN);
-  const Eigen::RowVectorXd mu = per_batch.colwise().mean();
-  const Eigen::MatrixXd dev = per_batch.rowwise() - mu;
-  return (dev.colwise().squaredNorm().transpose() / double(B - 1) / double(B)).cwiseSqrt();
-}
+/// Standard error of the mean of per-batch values, accumulated one batch at a time (Welford) so
+/// memory stays O(size of one statistic vector) whatever the number of batches.
+class BatchError {
+ public:
+  void add(const Eigen::VectorXd& x) {
+    if (n_ == 0) {
+      mean_ = Eigen::VectorXd::Zero(x.size());
+      m2_ = Eigen::VectorXd::Zero(x.size());
+    }
+    ++n_;
+    const Eigen::VectorXd d = x - mean_;
+    mean_ += d / double(n_);
+    m2_ += d.cwiseProduct(x - mean_);
+  }
+  /// sd / sqrt(n) per component; NaN with fewer than two batches.
+  Eigen::VectorXd error(Eigen::Index size) const {
+    if (n_ < 2) return Eigen::VectorXd::Constant(size, kNaN);
+    return (m2_ / double(n_ - 1) / double(n_)).cwiseMax(0.0).cwiseSqrt();
+  }
+  std::int64_t count() const { return n_; }
+
+ private:
+  std::int64_t n_ = 0;
+  Eigen::VectorXd mean_, m2_;
+};
 
 /// All statistics of rows [b, e) flattened into one vector:
 /// means (N) | second (N*N) | connected (N*N) | P(K) (N+1) | E | C.
@@ -91,9 +108,9 @@ EnergyStats energy_statistics(const ChainSeries& chains, std::int64_t N, double 
   EnergyStats r;
   r.E = m;
   r.C = v / (double(N) * T * T);
-  Eigen::MatrixXd per_batch(Eigen::Index(batch.size()), 2);
-  for (std::size_t b = 0; b < batch.size(); ++b) per_batch.row(Eigen::Index(b)) << batch[b][0], batch[b][1];
-  const Eigen::VectorXd err = batch_error(per_batch);
+  BatchError be;
+  for (const auto& b : batch) be.add(Eigen::Vector2d(b[0], b[1]));
+  const Eigen::VectorXd err = be.error(2);
   r.E_err = err(0);
   r.C_err = err(1);
   return r;
@@ -112,10 +129,9 @@ ModelStatistics model_statistics(const IsingModel& model, const SamplerOptions& 
 
   const Eigen::VectorXd full = flat_statistics(set, 0, set.samples.rows(), T, options.threads);
   const auto ranges = batch_ranges(set.chain, batches_per_chain(options.chains));
-  Eigen::MatrixXd per_batch(Eigen::Index(ranges.size()), full.size());
-  for (std::size_t b = 0; b < ranges.size(); ++b)
-    per_batch.row(Eigen::Index(b)) = flat_statistics(set, ranges[b].first, ranges[b].second, T, options.threads).transpose();
-  const Eigen::VectorXd err = batch_error(per_batch);
+  BatchError be;
+  for (const auto& [b, e] : ranges) be.add(flat_statistics(set, b, e, T, options.threads));
+  const Eigen::VectorXd err = be.error(full.size());
   st.batches = std::int64_t(ranges.size());
 
   Eigen::Index at = 0;
