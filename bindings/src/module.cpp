@@ -26,4 +26,5 @@ PYBIND11_MODULE(_core, m) {
   spinfer::py_bind::bind_data(m);
   spinfer::py_bind::bind_model(m);
   spinfer::py_bind::bind_io(m);
+  spinfer::py_bind::bind_sampler(m);
 }

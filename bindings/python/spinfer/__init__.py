@@ -33,6 +33,7 @@ from .models import (  # noqa: E402
     load_model,
 )
 from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
+from .sampling import sample, model_statistics, temperature_scan  # noqa: E402
 
 
 def build_info() -> str:
@@ -64,4 +65,7 @@ __all__ = [
     "write_matrix",
     "read_spikes",
     "bin_spikes",
+    "sample",
+    "model_statistics",
+    "temperature_scan",
 ]

@@ -1,0 +1,137 @@
+"""Single-unit updates per second: spinfer's sampler vs vectorised numpy samplers on the same models.
+
+Models (spins, T = 1, heat-bath / Gibbs updates everywhere):
+  * dense: SK model, N = 200, J_ij ~ N(0, 1/N), h = 0.
+  * lattice: 64 x 64 periodic square lattice, J = 0.4 between nearest neighbours, h = 0
+    (spinfer picks CSR neighbour lists automatically).
+numpy baselines, written to be as fast as numpy allows:
+  * dense, one chain: sequential sweep in Python, local fields updated with one vectorised
+    axpy per flip (the direct translation of the algorithm).
+  * dense, many chains: the same sweep applied to R chains at once, so each Python step updates
+    R units and the field update is an (R x N) rank-1 product: Python overhead is amortised.
+  * lattice: checkerboard updates, a whole sublattice at once with np.roll neighbour sums.
+Prints JSON lines: {"name", "updates_per_second", "ratio"} where ratio = spinfer / best numpy
+for that model. Usage: python benchmarks/bench_sampler.py [--quick]
+"""
+import argparse
+import json
+import time
+
+import numpy as np
+
+import spinfer
+
+
+def sk_model(N, seed=0):
+    rng = np.random.default_rng(seed)
+    J = np.triu(rng.normal(0, 1 / np.sqrt(N), (N, N)), 1)
+    return np.zeros(N), J + J.T
+
+
+def lattice_model(L, K):
+    N = L * L
+    J = np.zeros((N, N))
+    idx = np.arange(N).reshape(L, L)
+    for a, b in [(idx, np.roll(idx, -1, 0)), (idx, np.roll(idx, -1, 1))]:
+        J[a.ravel(), b.ravel()] = K
+        J[b.ravel(), a.ravel()] = K
+    return np.zeros(N), J
+
+
+def numpy_dense_one_chain(J, sweeps, rng):
+    N = len(J)
+    s = rng.choice([-1.0, 1.0], N)
+    H = J @ s
+    for _ in range(sweeps):
+        u = rng.random(N)
+        for k in range(N):
+            new = 1.0 if u[k] * (1.0 + np.exp(-2.0 * H[k])) < 1.0 else -1.0
+            if new != s[k]:
+                H += J[k] * (new - s[k])  # J symmetric: row k = column k, contiguous
+                s[k] = new
+    return sweeps * N
+
+
+def numpy_dense_many_chains(J, sweeps, R, rng):
+    N = len(J)
+    S = rng.choice([-1.0, 1.0], (R, N))
+    H = S @ J
+    for _ in range(sweeps):
+        U = rng.random((N, R))
+        for k in range(N):
+            new = np.where(U[k] * (1.0 + np.exp(-2.0 * H[:, k])) < 1.0, 1.0, -1.0)
+            delta = new - S[:, k]
+            S[:, k] = new
+            H += np.outer(delta, J[k])
+    return sweeps * N * R
+
+
+def numpy_checkerboard(L, K, sweeps, rng):
+    s = rng.choice([-1.0, 1.0], (L, L))
+    ii, jj = np.indices((L, L))
+    masks = [(ii + jj) % 2 == 0, (ii + jj) % 2 == 1]
+    for _ in range(sweeps):
+        for m in masks:
+            nb = np.roll(s, 1, 0) + np.roll(s, -1, 0) + np.roll(s, 1, 1) + np.roll(s, -1, 1)
+            p = 1.0 / (1.0 + np.exp(-2.0 * K * nb[m]))
+            s[m] = np.where(rng.random(p.size) < p, 1.0, -1.0)
+    return sweeps * L * L
+
+
+def timed(f, *args):
+    t0 = time.perf_counter()
+    updates = f(*args)
+    return updates / (time.perf_counter() - t0)
+
+
+def spinfer_rate(h, J, sweeps, chains, threads):
+    """Updates per second of the sampling loop (diagnostics["seconds"]); the one-off set-up (array
+    conversion, model validation, coupling layout: O(N^2) for the dense (N, N) input) is reported
+    separately, as the numpy baselines' set-up is not timed either."""
+    t0 = time.perf_counter()
+    _, d = spinfer.sample(h, J, "spin", chains * sweeps, chains=chains, threads=threads,
+                          burn_in=0, thin=1, seed=1)
+    wall = time.perf_counter() - t0
+    d["setup_seconds"] = round(wall - d["seconds"], 3)
+    return d["updates"] / d["seconds"], d
+
+
+def emit(name, rate, best_numpy, **extra):
+    print(json.dumps(dict(name=name, updates_per_second=round(rate), ratio=round(rate / best_numpy, 2), **extra)),
+          flush=True)
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--quick", action="store_true", help="fewer sweeps (noisier)")
+    q = ap.parse_args().quick
+    rng = np.random.default_rng(0)
+
+    # --- dense SK, N = 200 ---
+    h, J = sk_model(200)
+    np1 = timed(numpy_dense_one_chain, J, 5 if q else 20, rng)
+    npR = timed(numpy_dense_many_chains, J, 5 if q else 20, 64, rng)
+    best = max(np1, npR)
+    emit("dense N=200 numpy one chain", np1, best)
+    emit("dense N=200 numpy 64 chains vectorised", npR, best)
+    sweeps = 20000 if q else 100000
+    r1, d = spinfer_rate(h, J, sweeps, 1, 1)
+    emit("dense N=200 spinfer 1 thread", r1, best, storage=d["storage"], setup_seconds=d["setup_seconds"])
+    r2, d = spinfer_rate(h, J, sweeps // 2, 4, 2)
+    emit("dense N=200 spinfer 2 threads (4 chains)", r2, best, storage=d["storage"])
+    emit("dense N=200 spinfer 1 thread vs numpy one chain", r1, np1)
+
+    # --- 64 x 64 periodic lattice ---
+    L, K = 64, 0.4
+    hl, Jl = lattice_model(L, K)
+    npc = timed(numpy_checkerboard, L, K, 100 if q else 500, rng)
+    emit("lattice 64x64 numpy checkerboard", npc, npc)
+    sweeps = 2000 if q else 20000
+    r1, d = spinfer_rate(hl, Jl, sweeps, 1, 1)
+    emit("lattice 64x64 spinfer 1 thread", r1, npc, storage=d["storage"], setup_seconds=d["setup_seconds"])
+    r2, d = spinfer_rate(hl, Jl, sweeps // 2, 4, 2)
+    emit("lattice 64x64 spinfer 2 threads (4 chains)", r2, npc, storage=d["storage"])
+
+
+if __name__ == "__main__":
+    main()

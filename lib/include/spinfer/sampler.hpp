@@ -1,0 +1,158 @@
+// Monte Carlo sampling of an IsingModel, and the model statistics computed from the samples.
+//
+// Target: P_T(v) ∝ exp(-E(v) / T), E(v) = -sum_i h_i v_i - sum_{i<j} J_ij v_i v_j, with v in the
+// model's own convention ({0,1} or {-1,+1}); T = 1 is the fitted model itself.
+//
+// Moves: single-unit updates with incrementally maintained local fields H_i = h_i + sum_j J_ij v_j.
+// Changing unit k by delta changes the energy by -delta * H_k and every H_j by J_jk * delta.
+//   gibbs       heat bath: v_k is redrawn from P(v_k | rest), P(active) = 1 / (1 + exp(-(a-b)H_k/T))
+//               with a-b = 1 (binary) or 2 (spin).
+//   metropolis  the flip of v_k is accepted with probability min(1, exp(-dE / T)).
+// A sweep is N updates: units in order ("sequential") or N uniformly drawn units ("random").
+// Couplings are held dense (one contiguous column per unit) or as a CSR neighbour list; "auto"
+// takes the list when fewer than `sparse_density_threshold` of the off-diagonal couplings are
+// non-zero. The choice is reported.
+//
+// Chains: `chains` independent chains, run in parallel over `threads`. Chain c draws from its own
+// random stream Rng(seed, c), so a seed gives identical samples for every thread count. Chains
+// start from independent uniformly random states (or all-active / all-inactive states).
+//
+// Burn-in and thinning (in sweeps). A negative value means automatic: a pilot run of
+// `pilot_sweeps` sweeps per chain records the energy after every sweep, and the integrated
+// autocorrelation time tau of the energy is estimated on the pilot's second half with the
+// multi-chain Geyer initial-monotone-sequence estimator (chain_diagnostics.hpp). The pilot is
+// doubled until it spans at least 50 tau (or reaches `max_pilot_sweeps`, with a warning).
+// Automatic burn-in = the pilot's length (the chains continue from where the pilot stopped);
+// automatic thin = ceil(tau). A fixed burn-in with automatic thinning runs the pilot after the
+// fixed burn-in and discards it too.
+//
+// Parallel tempering (temperature_ladder set): each chain holds one replica per ladder
+// temperature; after every sweep of all replicas, neighbouring temperatures attempt to exchange
+// configurations with probability min(1, exp((1/T_a - 1/T_b)(E_a - E_b))) (Swendsen & Wang, PRL
+// 57:2607, 1986; Hukushima & Nemoto, J. Phys. Soc. Jpn. 65:1604, 1996). Samples are kept at
+// `temperature`, which is added to the ladder when absent.
+//
+// Diagnostics are computed from the kept samples of the target temperature: split R-hat, ESS and
+// integrated autocorrelation time (chain_diagnostics.hpp) of the energy and the magnetisation
+// (mean unit value in the model's convention), and acceptance (flip) rates.
+#pragma once
+
+#include <cstdint>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include <Eigen/Dense>
+
+#include "spinfer/model.hpp"
+#include "spinfer/progress.hpp"
+#include "spinfer/spin_matrix.hpp"
+
+namespace spinfer {
+
+struct SamplerOptions {
+  std::string method = "gibbs";        ///< "gibbs" (heat bath) or "metropolis"
+  std::string scan = "sequential";     ///< "sequential" or "random"
+  std::int64_t chains = 4;             ///< independent chains (>= 1)
+  std::int64_t samples = 10000;        ///< samples kept in total, shared out over the chains
+  std::int64_t burn_in = -1;           ///< sweeps discarded first; < 0: automatic (see above)
+  std::int64_t thin = -1;              ///< sweeps between kept samples (>= 1); < 0: automatic
+  std::int64_t pilot_sweeps = 500;     ///< first pilot length for automatic burn-in / thinning
+  std::int64_t max_pilot_sweeps = 100000;
+  double temperature = 1.0;            ///< target temperature T (> 0)
+  std::optional<std::vector<double>> temperature_ladder;  ///< set: parallel tempering
+  std::string storage = "auto";        ///< couplings "auto", "dense" or "sparse"
+  std::string start = "random";        ///< initial states: "random", "active" (all units
+                                       ///< active; a cold start) or "inactive"
+  double sparse_density_threshold = 0.1;
+  std::uint64_t seed = 0;
+  int threads = 1;                     ///< <= 0: automatic (resolve_threads)
+  ProgressCallback progress;           ///< called about every 0.2 s, on the calling thread
+};
+
+struct SamplerDiagnostics {
+  std::string method, scan;
+  std::string storage;                 ///< "dense" or "sparse" (what was used)
+  double coupling_density = 0;         ///< fraction of non-zero off-diagonal couplings
+  std::int64_t units = 0;
+  std::int64_t chains = 0;
+  std::int64_t burn_in = 0;            ///< sweeps discarded per chain before the first kept sample
+  std::int64_t thin = 0;               ///< sweeps between kept samples
+  bool automatic_burn_in = false, automatic_thin = false;
+  std::int64_t pilot_sweeps = 0;       ///< 0 when no pilot ran
+  double pilot_tau_energy = 0;         ///< energy autocorrelation time in sweeps from the pilot
+  std::int64_t sweeps_per_chain = 0;   ///< all sweeps per chain (burn-in + sampling)
+  double temperature = 1;
+  /// Per-sample observables at the target temperature; tau in kept samples (x thin = sweeps).
+  double rhat_energy = 0, rhat_magnetisation = 0;
+  double ess_energy = 0, ess_magnetisation = 0;
+  double tau_energy = 0, tau_magnetisation = 0;
+  std::vector<double> acceptance_rate;  ///< per chain: fraction of updates at the target
+                                        ///< temperature that changed a unit
+  double mean_acceptance_rate = 0;
+  std::vector<double> ladder;           ///< parallel tempering temperatures, ascending
+  std::vector<double> swap_acceptance;  ///< between ladder[k] and ladder[k+1], all chains pooled
+  std::vector<double> ladder_acceptance;  ///< flip rate at each ladder temperature
+  double seconds = 0;
+  double updates = 0;                   ///< single-unit updates performed (all replicas)
+  std::vector<std::string> warnings;
+};
+
+struct SampleSet {
+  SpinMatrix samples;                   ///< rows chain by chain; active bits; model's convention
+  std::vector<double> energies;         ///< E(v) of each row (not divided by T)
+  std::vector<std::int32_t> chain;      ///< chain index of each row
+  SamplerDiagnostics diagnostics;
+};
+
+/// Draws options.samples configurations from P_T. Throws InputError on a bad model or options,
+/// Interrupted when the progress callback returns false.
+SampleSet sample(const IsingModel& model, const SamplerOptions& options);
+
+/// A value and its standard error, elementwise.
+template <typename T>
+struct Estimate {
+  T value;
+  T error;
+};
+
+/// Statistics of P_T in the model's convention. Standard errors are batch means: the kept samples
+/// of each chain are cut into ceil(32 / chains) consecutive batches, the statistic is computed
+/// on every batch, and error = sd(batch values) / sqrt(batches). Point values use all samples.
+struct ModelStatistics {
+  Convention convention = Convention::spin;
+  double temperature = 1;
+  Estimate<Eigen::VectorXd> means;           ///< <v_i>
+  Estimate<Eigen::MatrixXd> second;          ///< <v_i v_j> (diagonal <v_i^2>)
+  Estimate<Eigen::MatrixXd> connected;       ///< <v_i v_j> - <v_i><v_j>
+  Estimate<Eigen::VectorXd> active_count;    ///< P(K), K = number of active units, 0..N
+  Estimate<double> energy;                   ///< <E>
+  Estimate<double> specific_heat;            ///< Var(E) / (N T^2)
+  std::int64_t batches = 0;
+  std::string error_method = "batch means";
+  SamplerDiagnostics diagnostics;
+};
+
+ModelStatistics model_statistics(const IsingModel& model, const SamplerOptions& options);
+
+/// Energy and specific heat over a set of temperatures. With `parallel_tempering`, one run with
+/// the (sorted) temperatures as the ladder samples every temperature at once; otherwise each
+/// temperature gets its own run with stream-separated seeds. options.temperature and
+/// options.temperature_ladder are ignored. The peak of C(T) is the largest scanned value, refined
+/// by the vertex of the parabola through it and its two neighbours when it is interior.
+struct TemperatureScan {
+  std::vector<double> temperatures;          ///< ascending
+  std::vector<double> energy, energy_error;  ///< <E> and its batch-means standard error
+  std::vector<double> specific_heat, specific_heat_error;  ///< Var(E)/(N T^2)
+  std::int64_t peak_index = 0;
+  double peak_temperature = 0;               ///< parabola vertex (or the grid point at an edge)
+  bool peak_at_edge = false;
+  bool parallel_tempering = false;
+  std::vector<double> swap_acceptance;       ///< parallel tempering only
+  std::vector<SamplerDiagnostics> runs;      ///< one per run
+};
+
+TemperatureScan temperature_scan(const IsingModel& model, const std::vector<double>& temperatures,
+                                 const SamplerOptions& options, bool parallel_tempering = false);
+
+}  // namespace spinfer

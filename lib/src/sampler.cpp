@@ -1,0 +1,541 @@
+// Single-unit Gibbs / Metropolis chains with incrementally maintained local fields, optional
+// parallel tempering, automatic burn-in and thinning, and convergence diagnostics.
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+#include <functional>
+#include <limits>
+#include <sstream>
+
+#include "sampler_engine.hpp"
+#include "spinfer/errors.hpp"
+#include "spinfer/rng.hpp"
+#include "spinfer/threads.hpp"
+
+namespace spinfer {
+namespace detail {
+namespace {
+
+// ---- couplings ---------------------------------------------------------------------------------
+
+// y += a x: the dense field update after a flip, where the time of a dense sweep goes. Built for
+// AVX2 as well as the baseline, chosen at load time, so portable binaries still use wide vectors.
+#if defined(__x86_64__) && defined(__GNUC__)
+__attribute__((target_clones("avx2", "default")))
+#endif
+void add_scaled(double* __restrict y, const double* __restrict x, double a, std::int64_t n) {
+  for (std::int64_t j = 0; j < n; ++j) y[j] += a * x[j];
+}
+
+struct Couplings {
+  bool sparse = false;
+  double density = 0;
+  Eigen::MatrixXd dense;               // column k holds J_jk for all j (symmetric, zero diagonal)
+  std::vector<std::int64_t> offsets;   // CSR: neighbours of k at [offsets[k], offsets[k+1])
+  std::vector<std::int32_t> index;
+  std::vector<double> value;
+};
+
+Couplings make_couplings(const IsingModel& m, const std::string& storage, double threshold) {
+  Couplings c;
+  const std::int64_t N = m.size();
+  std::int64_t nnz = 0;
+  for (std::int64_t k = 0; k < N; ++k)
+    for (std::int64_t j = 0; j < N; ++j) nnz += (j != k && m.couplings(j, k) != 0.0);
+  c.density = N > 1 ? double(nnz) / (double(N) * double(N - 1)) : 0.0;
+  c.sparse = storage == "sparse" || (storage == "auto" && c.density < threshold);
+  if (!c.sparse) {
+    c.dense = m.couplings;
+    return c;
+  }
+  c.offsets.assign(std::size_t(N + 1), 0);
+  c.index.reserve(std::size_t(nnz));
+  c.value.reserve(std::size_t(nnz));
+  for (std::int64_t k = 0; k < N; ++k) {
+    for (std::int64_t j = 0; j < N; ++j) {
+      const double v = m.couplings(j, k);
+      if (j != k && v != 0.0) {
+        c.index.push_back(std::int32_t(j));
+        c.value.push_back(v);
+      }
+    }
+    c.offsets[std::size_t(k + 1)] = std::int64_t(c.index.size());
+  }
+  return c;
+}
+
+// ---- acceptance tests ----------------------------------------------------------------------------
+// Both tests first compare u with bounds that need no exponential, from
+// 1 + a + a^2/2 <= e^a <= ... for a >= 0; only draws between the bounds evaluate exp. The answer
+// is the same as the plain test u < p (up to rounding of u at the boundary itself).
+
+/// Heat bath: true (unit active) with probability 1 / (1 + exp(-x)), given u uniform in [0, 1).
+inline bool heat_bath(double x, double u) {
+  const double a = std::abs(x);
+  const double q = 1.0 + a * (1.0 + 0.5 * a);  // q <= e^a, so q / (1 + q) <= sigma(a)
+  if (x >= 0) {
+    if (u * (1.0 + q) < q) return true;          // u < q/(1+q) <= sigma(x)
+  } else {
+    if (u * (1.0 + q) >= 1.0) return false;      // u >= 1/(1+q) >= sigma(x)
+  }
+  return u * (1.0 + std::exp(-x)) < 1.0;
+}
+
+/// Metropolis: true with probability exp(-y) for y > 0, given u uniform in [0, 1).
+inline bool metropolis(double y, double u) {
+  if (u < 1.0 - y) return true;                         // 1 - y <= e^-y
+  if (u * (1.0 + y * (1.0 + 0.5 * y)) >= 1.0) return false;  // e^-y <= 1/(1 + y + y^2/2)
+  return u < std::exp(-y);
+}
+
+// ---- replicas and chains -----------------------------------------------------------------------
+
+struct Replica {
+  std::vector<double> v;  // unit values in the model's convention
+  std::vector<double> H;  // local fields h_i + sum_j J_ij v_j
+  double E = 0;
+};
+
+struct Chain {
+  Rng rng;
+  std::vector<Replica> replicas;
+  std::vector<std::size_t> at_slot;  // ladder slot -> replica
+  std::vector<std::int64_t> slot_flips, slot_updates, swap_tries, swap_accepts;
+  std::int64_t steps = 0;
+};
+
+class Engine {
+ public:
+  Engine(const IsingModel& model, const SamplerOptions& o, std::vector<double> ladder)
+      : N_(model.size()),
+        h_(model.fields),
+        lo_(model.convention == Convention::binary ? 0.0 : -1.0),
+        hi_(1.0),
+        gibbs_(o.method == "gibbs"),
+        random_scan_(o.scan == "random"),
+        start_(o.start),
+        couplings_(make_couplings(model, o.storage, o.sparse_density_threshold)),
+        ladder_(std::move(ladder)) {
+    for (double T : ladder_) betas_.push_back(1.0 / T);
+  }
+
+  std::int64_t units() const { return N_; }
+  std::size_t slots() const { return ladder_.size(); }
+  const Couplings& couplings() const { return couplings_; }
+  double low() const { return lo_; }
+
+  Chain make_chain(std::uint64_t seed, std::uint64_t index) const {
+    Chain c;
+    c.rng = Rng(seed, index);
+    const std::size_t K = slots();
+    c.replicas.resize(K);
+    for (std::size_t r = 0; r < K; ++r) {
+      Replica& rep = c.replicas[r];
+      rep.v.resize(std::size_t(N_));
+      for (auto& x : rep.v)
+        x = start_ == "active" ? hi_ : start_ == "inactive" ? lo_ : (c.rng.next() >> 63) ? hi_ : lo_;
+      refresh(rep);
+      c.at_slot.push_back(r);
+    }
+    c.slot_flips.assign(K, 0);
+    c.slot_updates.assign(K, 0);
+    c.swap_tries.assign(K > 0 ? K - 1 : 0, 0);
+    c.swap_accepts.assign(K > 0 ? K - 1 : 0, 0);
+    return c;
+  }
+
+  /// One step: a sweep of every replica at its slot's temperature, then neighbour exchanges.
+  void step(Chain& c) const {
+    const std::size_t K = slots();
+    for (std::size_t s = 0; s < K; ++s) {
+      Replica& r = c.replicas[c.at_slot[s]];
+      c.slot_flips[s] += sweep(r, betas_[s], c.rng);
+      c.slot_updates[s] += N_;
+    }
+    for (std::size_t s = 0; s + 1 < K; ++s) {
+      const Replica& a = c.replicas[c.at_slot[s]];
+      const Replica& b = c.replicas[c.at_slot[s + 1]];
+      const double x = (betas_[s] - betas_[s + 1]) * (a.E - b.E);
+      ++c.swap_tries[s];
+      if (x >= 0 || c.rng.uniform() < std::exp(x)) {
+        std::swap(c.at_slot[s], c.at_slot[s + 1]);
+        ++c.swap_accepts[s];
+      }
+    }
+    // Recompute fields and energies now and then so rounding never accumulates.
+    if (++c.steps % 1024 == 0)
+      for (auto& r : c.replicas) refresh(r);
+  }
+
+  double magnetisation(const Replica& r) const {
+    double s = 0;
+    for (double x : r.v) s += x;
+    return s / double(N_);
+  }
+
+ private:
+  void refresh(Replica& r) const {
+    r.H.assign(std::size_t(N_), 0.0);
+    if (couplings_.sparse) {
+      for (std::int64_t k = 0; k < N_; ++k) {
+        double s = h_(k);
+        for (auto p = couplings_.offsets[std::size_t(k)]; p < couplings_.offsets[std::size_t(k + 1)]; ++p)
+          s += couplings_.value[std::size_t(p)] * r.v[std::size_t(couplings_.index[std::size_t(p)])];
+        r.H[std::size_t(k)] = s;
+      }
+    } else {
+      const Eigen::Map<const Eigen::VectorXd> v(r.v.data(), N_);
+      Eigen::Map<Eigen::VectorXd>(r.H.data(), N_) = h_ + couplings_.dense * v;
+    }
+    // E = -sum_i h_i v_i - 1/2 sum_i v_i (H_i - h_i) = -1/2 sum_i v_i (H_i + h_i)
+    double e = 0;
+    for (std::int64_t i = 0; i < N_; ++i) e -= 0.5 * r.v[std::size_t(i)] * (r.H[std::size_t(i)] + h_(i));
+    r.E = e;
+  }
+
+  std::int64_t sweep(Replica& r, double beta, Rng& rng) const {
+    // Dispatch once per sweep so the inner loop is specialised.
+    if (couplings_.sparse) {
+      if (gibbs_) return random_scan_ ? sweep_t<true, true, true>(r, beta, rng) : sweep_t<true, true, false>(r, beta, rng);
+      return random_scan_ ? sweep_t<true, false, true>(r, beta, rng) : sweep_t<true, false, false>(r, beta, rng);
+    }
+    if (gibbs_) return random_scan_ ? sweep_t<false, true, true>(r, beta, rng) : sweep_t<false, true, false>(r, beta, rng);
+    return random_scan_ ? sweep_t<false, false, true>(r, beta, rng) : sweep_t<false, false, false>(r, beta, rng);
+  }
+
+  template <bool kSparse, bool kGibbs, bool kRandom>
+  std::int64_t sweep_t(Replica& r, double beta, Rng& rng) const {
+    double* v = r.v.data();
+    double* H = r.H.data();
+    const double span = hi_ - lo_, both = hi_ + lo_;
+    std::int64_t flips = 0;
+    double E = r.E;
+    for (std::int64_t step = 0; step < N_; ++step) {
+      const std::int64_t k = kRandom ? std::int64_t(rng.below(std::uint64_t(N_))) : step;
+      const double Hk = H[k];
+      double delta;  // new value - old value, 0 when unchanged
+      if constexpr (kGibbs) {
+        // Heat bath: P(active | rest) = 1 / (1 + exp(-x)), x = beta (hi - lo) H_k.
+        const double next = heat_bath(beta * span * Hk, rng.uniform()) ? hi_ : lo_;
+        delta = next - v[k];
+      } else {
+        const double d = both - 2.0 * v[k];  // the flip
+        const double dE = -d * Hk;
+        delta = (dE <= 0.0 || metropolis(beta * dE, rng.uniform())) ? d : 0.0;
+      }
+      if (delta != 0.0) {
+        ++flips;
+        v[k] += delta;
+        E -= delta * Hk;
+        if constexpr (kSparse) {
+          const auto end = couplings_.offsets[std::size_t(k + 1)];
+          for (auto p = couplings_.offsets[std::size_t(k)]; p < end; ++p)
+            H[couplings_.index[std::size_t(p)]] += couplings_.value[std::size_t(p)] * delta;
+        } else {
+          add_scaled(H, couplings_.dense.data() + k * N_, delta, N_);
+        }
+      }
+    }
+    r.E = E;
+    return flips;
+  }
+
+  std::int64_t N_;
+  Eigen::VectorXd h_;
+  double lo_, hi_;
+  bool gibbs_, random_scan_;
+  std::string start_;
+  Couplings couplings_;
+  std::vector<double> ladder_, betas_;
+};
+
+double seconds_since(std::chrono::steady_clock::time_point t0) {
+  return std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+}
+
+/// Runs chains[c] for steps[c] steps each; `after(c, i)` runs after step i of chain c. Work goes
+/// in rounds sized from the measured speed to last about 0.2 s; between rounds the progress
+/// callback runs on the calling thread (returning false throws Interrupted). Round boundaries
+/// never change results: each chain only depends on its own stream.
+class Driver {
+ public:
+  Driver(const Engine& e, std::vector<Chain>& chains, const SamplerOptions& o)
+      : engine_(e), chains_(chains), o_(o), threads_(resolve_threads(o.threads)),
+        t0_(std::chrono::steady_clock::now()) {}
+
+  void run(const std::string& stage, const std::vector<std::int64_t>& steps,
+           const std::function<void(std::size_t, std::int64_t)>& after) {
+    const std::int64_t C = std::int64_t(chains_.size());
+    const double updates_per_step = double(engine_.units()) * double(engine_.slots()) * double(C);
+    // First round: about 2e5 single-unit updates in all, then scale to the measured rate.
+    std::int64_t round = std::max<std::int64_t>(1, std::int64_t(2e5 / updates_per_step));
+    std::int64_t longest = 0;
+    for (auto s : steps) longest = std::max(longest, s);
+    for (std::int64_t begin = 0; begin < longest;) {
+      const std::int64_t end = std::min(longest, begin + round);
+      const auto t = std::chrono::steady_clock::now();
+      parallel_for(C, threads_, [&](std::int64_t c) {
+        Chain& ch = chains_[std::size_t(c)];
+        const std::int64_t stop = std::min(end, steps[std::size_t(c)]);
+        for (std::int64_t i = begin; i < stop; ++i) {
+          engine_.step(ch);
+          after(std::size_t(c), i);
+        }
+      });
+      const double took = seconds_since(t);
+      const double factor = took > 0 ? std::clamp(0.2 / took, 0.25, 4.0) : 4.0;
+      round = std::max<std::int64_t>(1, std::int64_t(double(end - begin) * factor));
+      begin = end;
+      report(stage, longest, end);
+    }
+  }
+
+  void report(const std::string& stage, std::int64_t total, std::int64_t done) {
+    if (!o_.progress) return;
+    Progress p;
+    p.stage = stage;
+    p.done = done;
+    p.total = total;
+    p.elapsed_s = seconds_since(t0_);
+    if (!o_.progress(p)) throw Interrupted("sampling interrupted during " + stage);
+  }
+
+  double elapsed() const { return seconds_since(t0_); }
+
+ private:
+  const Engine& engine_;
+  std::vector<Chain>& chains_;
+  const SamplerOptions& o_;
+  int threads_;
+  std::chrono::steady_clock::time_point t0_;
+};
+
+double finite_or(double x, double fallback) { return std::isfinite(x) ? x : fallback; }
+
+}  // namespace
+
+void check_sampler_options(const SamplerOptions& o) {
+  if (o.method != "gibbs" && o.method != "metropolis")
+    throw InputError("sampler: method must be \"gibbs\" or \"metropolis\", got \"" + o.method + "\"");
+  if (o.scan != "sequential" && o.scan != "random")
+    throw InputError("sampler: scan must be \"sequential\" or \"random\", got \"" + o.scan + "\"");
+  if (o.storage != "auto" && o.storage != "dense" && o.storage != "sparse")
+    throw InputError("sampler: storage must be \"auto\", \"dense\" or \"sparse\", got \"" +
+                     o.storage + "\"");
+  if (o.start != "random" && o.start != "active" && o.start != "inactive")
+    throw InputError("sampler: start must be \"random\", \"active\" or \"inactive\", got \"" +
+                     o.start + "\"");
+  if (o.chains < 1) throw InputError("sampler: chains must be >= 1");
+  if (o.samples < o.chains)
+    throw InputError("sampler: samples (" + std::to_string(o.samples) +
+                     ") must be at least the number of chains (" + std::to_string(o.chains) + ")");
+  if (o.thin == 0) throw InputError("sampler: thin must be >= 1 (or negative for automatic)");
+  if (o.pilot_sweeps < 8) throw InputError("sampler: pilot_sweeps must be >= 8");
+  if (o.max_pilot_sweeps < o.pilot_sweeps)
+    throw InputError("sampler: max_pilot_sweeps must be >= pilot_sweeps");
+  if (!(o.temperature > 0) || !std::isfinite(o.temperature))
+    throw InputError("sampler: temperature must be positive and finite");
+  if (!(o.sparse_density_threshold >= 0) || !(o.sparse_density_threshold <= 1))
+    throw InputError("sampler: sparse_density_threshold must be in [0, 1]");
+}
+
+std::vector<double> normalise_ladder(std::vector<double> ladder, double target,
+                                     std::size_t* target_slot) {
+  for (std::size_t k = 0; k < ladder.size(); ++k)
+    if (!(ladder[k] > 0) || !std::isfinite(ladder[k]))
+      throw InputError("sampler: temperature_ladder entry " + std::to_string(k + 1) +
+                       " must be positive and finite");
+  ladder.push_back(target);
+  std::sort(ladder.begin(), ladder.end());
+  std::vector<double> out;
+  for (double T : ladder)
+    if (out.empty() || std::abs(T - out.back()) > 1e-12 * T) out.push_back(T);
+  *target_slot = 0;
+  for (std::size_t k = 0; k < out.size(); ++k)
+    if (std::abs(out[k] - target) <= 1e-12 * target) *target_slot = k;
+  out[*target_slot] = target;
+  return out;
+}
+
+EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const EngineRequest& rq) {
+  validate_model(model, "model");
+  check_sampler_options(o);
+  if (model.size() < 1) throw InputError("model: no units");
+  const Engine engine(model, o, rq.ladder);
+  const std::int64_t N = engine.units(), C = o.chains;
+  const std::size_t K = engine.slots(), target = rq.target_slot;
+  const auto nC = static_cast<std::size_t>(C);
+
+  std::vector<Chain> chains;
+  chains.reserve(nC);
+  for (std::int64_t c = 0; c < C; ++c) chains.push_back(engine.make_chain(o.seed, std::uint64_t(c)));
+  Driver driver(engine, chains, o);
+
+  EngineResult res;
+  SamplerDiagnostics& d = res.set.diagnostics;
+  d.method = o.method;
+  d.scan = o.scan;
+  d.storage = engine.couplings().sparse ? "sparse" : "dense";
+  d.coupling_density = engine.couplings().density;
+  d.units = N;
+  d.chains = C;
+  d.temperature = rq.ladder[target];
+  d.automatic_burn_in = o.burn_in < 0;
+  d.automatic_thin = o.thin < 0;
+
+  // ---- burn-in ----
+  const std::int64_t fixed_burn = std::max<std::int64_t>(o.burn_in, 0);
+  if (fixed_burn > 0)
+    driver.run("burn-in", std::vector<std::int64_t>(nC, fixed_burn),
+               [](std::size_t, std::int64_t) {});
+  std::int64_t thin = o.thin;
+  std::int64_t pilot = 0;
+  if (o.burn_in < 0 || o.thin < 0) {
+    // Pilot: record the energy after every step; tune on its second half.
+    std::vector<ChainSeries> trace(K, ChainSeries(nC));
+    std::int64_t length = o.pilot_sweeps;
+    double tau = 1;
+    for (;;) {
+      const std::int64_t more = length - pilot;
+      driver.run("burn-in (pilot)", std::vector<std::int64_t>(nC, more),
+                 [&](std::size_t c, std::int64_t) {
+                   for (std::size_t s = 0; s < K; ++s) {
+                     if (!rq.all_slot_energies && s != target) continue;
+                     const Chain& ch = chains[c];
+                     trace[s][c].push_back(ch.replicas[ch.at_slot[s]].E);
+                   }
+                 });
+      pilot = length;
+      tau = 0;
+      for (std::size_t s = 0; s < K; ++s) {
+        if (!rq.all_slot_energies && s != target) continue;
+        ChainSeries half(nC);
+        for (std::int64_t c = 0; c < C; ++c) {
+          const auto& x = trace[s][std::size_t(c)];
+          half[std::size_t(c)].assign(x.begin() + std::ptrdiff_t(x.size() / 2), x.end());
+        }
+        tau = std::max(tau, finite_or(autocorrelation_time(half, false).tau, 1.0));
+      }
+      if (50.0 * tau <= double(pilot)) break;
+      if (pilot >= o.max_pilot_sweeps) {
+        std::ostringstream w;
+        w << "the pilot run reached max_pilot_sweeps (" << o.max_pilot_sweeps
+          << ") with an energy autocorrelation time of " << tau
+          << " sweeps, more than 1/50 of the pilot: the chains may not have converged";
+        d.warnings.push_back(w.str());
+        break;
+      }
+      length = std::min(2 * length, o.max_pilot_sweeps);
+    }
+    d.pilot_sweeps = pilot;
+    d.pilot_tau_energy = tau;
+    if (thin < 0) thin = std::max<std::int64_t>(1, std::int64_t(std::ceil(tau)));
+  }
+  d.burn_in = fixed_burn + pilot;
+  d.thin = thin;
+
+  // ---- sampling ----
+  std::vector<std::int64_t> kept(nC), offset(nC + 1, 0), steps(nC);
+  for (std::int64_t c = 0; c < C; ++c) {
+    kept[std::size_t(c)] = o.samples / C + (c < o.samples % C ? 1 : 0);
+    offset[std::size_t(c) + 1] = offset[std::size_t(c)] + kept[std::size_t(c)];
+    steps[std::size_t(c)] = kept[std::size_t(c)] * thin;
+  }
+  const std::int64_t rows = o.samples;
+  std::vector<std::uint8_t> bits(rq.keep_states ? std::size_t(rows * N) : 0);
+  res.set.energies.assign(std::size_t(rows), 0.0);
+  res.set.chain.assign(std::size_t(rows), 0);
+  std::vector<double> magnetisation(std::size_t(rows), 0.0);
+  if (rq.all_slot_energies)
+    for (std::size_t s = 0; s < K; ++s) {
+      res.slot_energies.emplace_back(nC);
+      for (std::int64_t c = 0; c < C; ++c) res.slot_energies[s][std::size_t(c)].reserve(std::size_t(kept[std::size_t(c)]));
+    }
+  // Acceptance counts from here on only.
+  for (auto& ch : chains) {
+    std::fill(ch.slot_flips.begin(), ch.slot_flips.end(), 0);
+    std::fill(ch.slot_updates.begin(), ch.slot_updates.end(), 0);
+    std::fill(ch.swap_tries.begin(), ch.swap_tries.end(), 0);
+    std::fill(ch.swap_accepts.begin(), ch.swap_accepts.end(), 0);
+  }
+  const double lo = engine.low();
+  driver.run("sampling", steps, [&](std::size_t c, std::int64_t i) {
+    if ((i + 1) % thin != 0) return;
+    const Chain& ch = chains[c];
+    const std::int64_t row = offset[c] + (i + 1) / thin - 1;
+    const Replica& r = ch.replicas[ch.at_slot[target]];
+    res.set.energies[std::size_t(row)] = r.E;
+    res.set.chain[std::size_t(row)] = std::int32_t(c);
+    magnetisation[std::size_t(row)] = engine.magnetisation(r);
+    if (rq.keep_states) {
+      std::uint8_t* out = bits.data() + row * N;
+      for (std::int64_t k = 0; k < N; ++k) out[k] = r.v[std::size_t(k)] != lo;
+    }
+    if (rq.all_slot_energies)
+      for (std::size_t s = 0; s < K; ++s) res.slot_energies[s][c].push_back(ch.replicas[ch.at_slot[s]].E);
+  });
+  d.sweeps_per_chain = d.burn_in + steps[0];
+  res.set.samples = rq.keep_states ? SpinMatrix(std::move(bits), rows, N, model.convention)
+                                   : SpinMatrix(std::vector<std::uint8_t>(), 0, N, model.convention);
+
+  // ---- diagnostics ----
+  ChainSeries energy(nC), mag(nC);
+  for (std::int64_t c = 0; c < C; ++c) {
+    const auto b = std::size_t(offset[std::size_t(c)]), e = std::size_t(offset[std::size_t(c) + 1]);
+    energy[std::size_t(c)].assign(res.set.energies.begin() + std::ptrdiff_t(b), res.set.energies.begin() + std::ptrdiff_t(e));
+    mag[std::size_t(c)].assign(magnetisation.begin() + std::ptrdiff_t(b), magnetisation.begin() + std::ptrdiff_t(e));
+  }
+  d.rhat_energy = split_rhat(energy);
+  d.rhat_magnetisation = split_rhat(mag);
+  const AutocorrelationTime te = autocorrelation_time(energy), tm = autocorrelation_time(mag);
+  d.tau_energy = te.tau;
+  d.ess_energy = te.ess;
+  d.tau_magnetisation = tm.tau;
+  d.ess_magnetisation = tm.ess;
+  double flips = 0, updates = 0;
+  for (const auto& ch : chains) {
+    const double f = double(ch.slot_flips[target]), u = double(ch.slot_updates[target]);
+    d.acceptance_rate.push_back(u > 0 ? f / u : 0.0);
+    flips += f;
+    updates += u;
+  }
+  d.mean_acceptance_rate = updates > 0 ? flips / updates : 0.0;
+  if (K > 1) {
+    d.ladder = rq.ladder;
+    for (std::size_t s = 0; s < K; ++s) {
+      double f = 0, u = 0;
+      for (const auto& ch : chains) {
+        f += double(ch.slot_flips[s]);
+        u += double(ch.slot_updates[s]);
+      }
+      d.ladder_acceptance.push_back(u > 0 ? f / u : 0.0);
+    }
+    for (std::size_t s = 0; s + 1 < K; ++s) {
+      double a = 0, t = 0;
+      for (const auto& ch : chains) {
+        a += double(ch.swap_accepts[s]);
+        t += double(ch.swap_tries[s]);
+      }
+      d.swap_acceptance.push_back(t > 0 ? a / t : 0.0);
+    }
+  }
+  d.seconds = driver.elapsed();
+  for (const auto& ch : chains) d.updates += double(ch.steps) * double(N) * double(K);
+  return res;
+}
+
+}  // namespace detail
+
+SampleSet sample(const IsingModel& model, const SamplerOptions& options) {
+  detail::check_sampler_options(options);
+  detail::EngineRequest rq;
+  if (options.temperature_ladder) {
+    rq.ladder = detail::normalise_ladder(*options.temperature_ladder, options.temperature,
+                                         &rq.target_slot);
+  } else {
+    rq.ladder = {options.temperature};
+  }
+  return detail::run_engine(model, options, rq).set;
+}
+
+}  // namespace spinfer
