@@ -14,7 +14,6 @@ genes/    "Thirty genes switched on or off across 2,000 simulated cells": a spar
 Each folder also gets the generating model (true_model.json, binary convention) as ground truth.
 Run from the repository root:  python3 data/make_demo.py
 """
-import json
 from pathlib import Path
 
 import numpy as np
@@ -57,17 +56,11 @@ def gene_network(rng, n=30):
     return a, W
 
 
-def model_json(fields, couplings, names, note):
-    return {
-        "format": "spinfer-model", "format_version": 1, "convention": "binary",
-        "energy": "E(v) = -sum_i h_i v_i - sum_{i<j} J_ij v_i v_j, P(v) = exp(-E(v))/Z, v in {0,1}",
-        "fields": [float(v) for v in fields],
-        "couplings": [[float(v) for v in row] for row in couplings],
-        "names": names,
-        "provenance": {"method": "ground-truth", "l1": 0, "l2": 0, "iterations": 0, "converged": True,
-                       "objective": 0, "samples": 0, "units": len(fields), "seed": 0,
-                       "version": spinfer.__version__, "extra": {"note": note}},
-    }
+def save_truth(path, fields, couplings, names, note):
+    model = spinfer.IsingModel(fields=np.asarray(fields), couplings=np.asarray(couplings),
+                               convention="binary", names=names,
+                               provenance={"method": "ground-truth", "extra": {"note": note}})
+    spinfer.save_model(path, model)
 
 
 def make_neurons(rng):
@@ -97,8 +90,7 @@ def make_neurons(rng):
     with open(out / "gaps.csv", "w") as f:
         f.write("start,stop\n")
         f.write(f"{GAP[0]},{GAP[1]}\n")
-    with open(out / "true_model.json", "w") as f:
-        json.dump(model_json(a, W, names, "neuron demo ground truth, 10 ms bins"), f, indent=1)
+    save_truth(out / "true_model.json", a, W, names, "neuron demo ground truth, 10 ms bins")
     return X
 
 
@@ -118,8 +110,7 @@ def make_genes(rng):
         f.write(",".join(names) + "\n")
         for row in X:
             f.write(",".join(str(int(v)) for v in row) + "\n")
-    with open(out / "true_model.json", "w") as f:
-        json.dump(model_json(a, W, names, "gene demo ground truth"), f, indent=1)
+    save_truth(out / "true_model.json", a, W, names, "gene demo ground truth")
 
 
 def main():
