@@ -7,6 +7,10 @@
 #include <pybind11/pybind11.h>
 #include <pybind11/stl.h>
 
+#include <nlohmann/json.hpp>
+
+#include "spinfer/model.hpp"
+#include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
 
 namespace spinfer::py_bind {
@@ -14,9 +18,18 @@ namespace spinfer::py_bind {
 namespace py = pybind11;
 
 void bind_data(py::module_& m);
+void bind_check(py::module_& m);
 void bind_model(py::module_& m);
 void bind_io(py::module_& m);
 void bind_sampler(py::module_& m);
+
+// Shared conversions (defined in bind_model.cpp and bind_sampler.cpp).
+py::dict model_to_dict(const IsingModel& m);
+IsingModel model_from_dict(const py::dict& d);
+py::object json_to_py(const nlohmann::json& j);
+/// Progress callback for long calls: takes the GIL briefly, runs Python signal handlers (Ctrl-C
+/// -> KeyboardInterrupt) and an optional user callable(dict) -> bool.
+ProgressCallback progress_callback(const py::object& user);
 
 /// A SpinMatrix viewing a numpy array without a copy when it is a C-contiguous 2-D uint8/bool
 /// array; other dtypes and layouts are converted only when `copy` is true, else ValueError.

@@ -11,7 +11,6 @@
 #include "spinfer/model_io.hpp"
 
 namespace spinfer::py_bind {
-namespace {
 
 // nlohmann::json <-> Python objects (provenance "extra" holds arbitrary JSON).
 py::object json_to_py(const nlohmann::json& j) {
@@ -119,8 +118,6 @@ Moments moments_from_dict(const py::dict& d) {
   if (d.contains("total_weight")) m.total_weight = d["total_weight"].cast<double>();
   return m;
 }
-
-}  // namespace
 
 void bind_model(py::module_& m) {
   m.def("validate_model", [](const py::dict& d) { return model_to_dict(model_from_dict(d)); },

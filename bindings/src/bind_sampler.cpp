@@ -21,6 +21,8 @@ IsingModel model_from_arrays(const Eigen::VectorXd& fields, const Eigen::MatrixX
   return m;
 }
 
+}  // namespace
+
 /// A Python callable shared without touching its reference count off the GIL.
 std::shared_ptr<py::object> shared_callable(const py::object& f) {
   auto* held = new py::object(f);
@@ -45,6 +47,8 @@ ProgressCallback progress_callback(const py::object& user) {
     return r.is_none() || r.cast<bool>();
   };
 }
+
+namespace {
 
 SamplerOptions options_from_dict(const py::dict& d) {
   SamplerOptions o;

@@ -33,6 +33,7 @@ from .models import (  # noqa: E402
     load_model,
 )
 from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
+from .checking import check, check_table  # noqa: E402
 from .sampling import sample, model_statistics, temperature_scan  # noqa: E402
 
 
@@ -50,6 +51,8 @@ __all__ = [
     "connected_triplets",
     "unique_patterns",
     "bootstrap_noise",
+    "check",
+    "check_table",
     "IsingModel",
     "convert_model",
     "exact_statistics",
