@@ -3,11 +3,16 @@
 #include <chrono>
 #include <ctime>
 #include <filesystem>
+#include <fstream>
+#include <memory>
+#include <unistd.h>
+#include <cstdio>
 #include <iostream>
 
 #include <nlohmann/json.hpp>
 
 #include "spinfer/errors.hpp"
+#include "spinfer/version.hpp"
 
 namespace spinfer::cli {
 
@@ -37,6 +42,46 @@ void log_info(const Context& ctx, const std::string& event, const std::string& m
 }
 
 void print_summary(const std::string& json_line) { std::cout << json_line << std::endl; }
+
+spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string& stage) {
+  auto last = std::make_shared<double>(0.0);
+  const Context* c = &ctx;
+  return [c, stage, last](const spinfer::Progress& p) {
+    // A terminal gets a line every 2 s; a log file (cluster job) every 30 s.
+    const double every = ::isatty(2) ? 2.0 : 30.0;
+    if (p.elapsed_s - *last < every) return true;
+    *last = p.elapsed_s;
+    std::string msg = stage + ": " + std::to_string(p.done);
+    if (p.total > 0) msg += "/" + std::to_string(p.total);
+    msg += " (" + std::to_string(int(p.elapsed_s)) + " s)";
+    log_info(*c, "progress", msg);
+    return true;
+  };
+}
+
+std::string file_checksum(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  if (!in) throw FileError(path + ": cannot open file");
+  std::uint64_t h = 0xcbf29ce484222325ULL;
+  char buf[1 << 16];
+  while (in) {
+    in.read(buf, sizeof buf);
+    for (std::streamsize k = 0; k < in.gcount(); ++k) {
+      h ^= std::uint8_t(buf[k]);
+      h *= 0x100000001b3ULL;
+    }
+  }
+  char hex[17];
+  std::snprintf(hex, sizeof hex, "%016llx", static_cast<unsigned long long>(h));
+  return hex;
+}
+
+nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string>& inputs) {
+  nlohmann::json files = nlohmann::json::array();
+  for (const auto& f : inputs) files.push_back({{"path", f}, {"fnv1a64", file_checksum(f)}});
+  return {{"command_line", ctx.argv}, {"version", spinfer::version()}, {"seed", ctx.common.seed},
+          {"threads", ctx.common.threads}, {"inputs", files}};
+}
 
 void check_output_path(const std::string& path, bool force) {
   if (path.empty()) return;

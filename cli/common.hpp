@@ -6,6 +6,9 @@
 #include <vector>
 
 #include <CLI/CLI.hpp>
+#include <nlohmann/json.hpp>
+
+#include "spinfer/progress.hpp"
 
 namespace spinfer::cli {
 
@@ -43,6 +46,15 @@ void log_info(const Context& ctx, const std::string& event, const std::string& m
 
 /// Print the final machine-readable summary line on stdout (a JSON object).
 void print_summary(const std::string& json_line);
+
+/// A progress callback that logs a plain line (or a JSON line) on stderr at most every few seconds.
+spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string& stage);
+
+/// Provenance for outputs: command line, version, seed, threads, and a checksum of each input.
+nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string>& inputs);
+
+/// 64-bit FNV-1a checksum of a file's bytes, as 16 hex digits (throws FileError if unreadable).
+std::string file_checksum(const std::string& path);
 
 /// Refuse to overwrite an existing output unless --force (throws spinfer::FileError).
 void check_output_path(const std::string& path, bool force);

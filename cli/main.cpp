@@ -18,6 +18,8 @@ int main(int argc, char** argv) {
   add_stats_command(app, ctx);
   add_bin_command(app, ctx);
   add_convert_command(app, ctx);
+  add_sample_command(app, ctx);
+  add_check_command(app, ctx);
 
   try {
     app.parse(argc, argv);
