@@ -14,5 +14,6 @@ void add_bin_command(CLI::App& app, Context& ctx);
 void add_convert_command(CLI::App& app, Context& ctx);
 void add_sample_command(CLI::App& app, Context& ctx);
 void add_check_command(CLI::App& app, Context& ctx);
+void add_scan_command(CLI::App& app, Context& ctx);
 
 }  // namespace spinfer::cli

@@ -20,6 +20,7 @@ int main(int argc, char** argv) {
   add_convert_command(app, ctx);
   add_sample_command(app, ctx);
   add_check_command(app, ctx);
+  add_scan_command(app, ctx);
 
   try {
     app.parse(argc, argv);

@@ -1,0 +1,30 @@
+// Temperature scan of a model: mean energy and specific heat C(T) = Var(E) / (N T^2) for
+// P_T(v) ∝ exp(-E(v) / T) over a grid of T, with the location of the C(T) peak (literature sheet
+// §4.3). Exact by enumeration for small models; Monte Carlo (optionally one parallel-tempering
+// run across the whole ladder) beyond.
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include "spinfer/model.hpp"
+#include "spinfer/sampler.hpp"
+
+namespace spinfer {
+
+struct ScanOptions {
+  std::string method = "auto";   ///< "auto" (exact when N <= 20, else tempering), "exact",
+                                 ///< "sampled" (independent runs), "tempering"
+  SamplerOptions sampler;        ///< used by the Monte Carlo methods
+};
+
+/// Runs the scan; `temperatures` must be positive (sorted ascending in the result).
+/// The exact method reports zero errors; `method` of the result's first run says what was used.
+TemperatureScan scan_temperatures(const IsingModel& model, std::vector<double> temperatures,
+                                  const ScanOptions& options, std::string* method_used = nullptr);
+
+/// Vertex of the parabola through three equally or unequally spaced points around a maximum at
+/// index k (0 < k < n-1); the grid value itself at an edge.
+double refine_peak(const std::vector<double>& x, const std::vector<double>& y, std::size_t k);
+
+}  // namespace spinfer
