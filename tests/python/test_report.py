@@ -73,6 +73,7 @@ def test_full_report_is_self_contained(inputs, tmp_path):
     assert "subsampling" in text
     assert "max normalised error" in text and "pairwise" in text
     assert "cell&lt;0&gt;" in text  # names in the edge table are escaped
+    assert "Strongest couplings (15 of 15 edges)" in text
     assert "RMS of (model − data)/SE" in text
     assert [p.name for p in tmp_path.iterdir()] == ["report.html"]
 
@@ -110,6 +111,11 @@ def test_minimal_and_partial_inputs(inputs, tmp_path, rng):
     text = path.read_text(encoding="utf-8")
     assert len(images(text)) == 3  # couplings, histogram, means
     assert "100 × 6" in text and "Strongest couplings (3 of 3 edges)" in text
+    spinfer.write_report(path, title="top", model=model, top_edges=4)
+    text = path.read_text(encoding="utf-8")
+    assert "Strongest couplings (4 of 15 edges)" in text
+    table = text.split("Strongest couplings")[1].split("</table>")[0]
+    assert table.count("<tr>") == 5  # header and four edges
     # the scan dict from temperature_scan (peak_temperature, peak_at_edge) is understood
     spinfer.write_report(path, title="scan", scan={"temperatures": [1, 2], "specific_heat": [1, 2],
                                                     "peak_temperature": 2.0, "peak_at_edge": True})

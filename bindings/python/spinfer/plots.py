@@ -211,7 +211,7 @@ def plot_model_vs_data(data_values, model_values, noise: Union[None, float, Sequ
     ax.scatter(x, y, **opts)
     shown = np.concatenate(series)
     shown = shown[np.isfinite(shown) & (shown > 0 if log else True)]
-    lo, hi = (float(shown.min()), float(shown.max())) if shown.size else (0.0, 1.0)
+    lo, hi = (float(shown.min()), float(shown.max())) if shown.size else (0.1 if log else 0.0, 1.0)
     if log:
         ax.set_xscale("log")
         ax.set_yscale("log")

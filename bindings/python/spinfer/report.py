@@ -285,13 +285,15 @@ def write_report(path, *, title: str, model=None, check: Optional[dict] = None,
             srows.append(["peak at the edge of the scan", "yes: widen the temperature range"])
         parts += ["<h2>Temperature scan</h2>", _table(srows)]
 
+    n_edges = None if edges is None else len(edges)
     if edges is None and J is not None:
         from .network import edge_table
-        edges = edge_table(J, names)
+        edges = edge_table(J, names, top=top_edges)
+        n_edges = int(np.count_nonzero(J[np.triu_indices(J.shape[0], k=1)]))
     if edges is not None and len(edges):
         shown = edges.head(top_edges)
         cols = [c for c in shown.columns if c not in ("i", "j")]
-        parts += [f"<h2>Strongest couplings ({len(shown)} of {len(edges)} edges)</h2>",
+        parts += [f"<h2>Strongest couplings ({len(shown)} of {n_edges} edges)</h2>",
                   _table(shown[cols].itertuples(index=False, name=None), cols)]
 
     parts.append("<h2>How to read this</h2>")
