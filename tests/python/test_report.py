@@ -148,3 +148,36 @@ def test_atomic_write_keeps_the_old_file_on_failure(inputs, tmp_path, monkeypatc
         spinfer.write_report(path, title="t", model=inputs[0])
     assert path.read_text() == "previous report"
     assert os.listdir(tmp_path) == ["r.html"]
+
+
+def test_report_from_package_outputs(tmp_path):
+    """The report takes what the package's own functions return, as they return it."""
+    rng = np.random.default_rng(5)
+    n = 5
+    J = np.triu(rng.normal(scale=0.4, size=(n, n)) * (rng.uniform(size=(n, n)) < 0.5), 1)
+    J = J + J.T
+    h = rng.normal(scale=0.2, size=n)
+    X, _ = spinfer.sample(h, J, "spin", 4000, seed=3)
+    data = spinfer.moments(X, convention="spin", copy=True)
+    noise = spinfer.bootstrap_noise(X, convention="spin", replicates=50, copy=True)
+    fit = spinfer.fit_closed_form(X, "tap")
+    pred = spinfer.exact_statistics(fit)
+    indep = spinfer.exact_statistics(np.arctanh(data["mean"]), np.zeros((n, n)), "spin")
+    check = {
+        "means": {"data": data["mean"], "model": pred["mean"], "independent": indep["mean"],
+                  "data_se": noise["mean_se"]},
+        "correlations": {"data": data["connected"], "model": pred["connected"],
+                         "independent": indep["connected"], "data_se": noise["connected_se"]},
+        "active_counts": {"data": spinfer.active_count_distribution(X, copy=True),
+                          "model": pred["active_count"], "independent": indep["active_count"],
+                          "data_se": noise["count_se"]},
+    }
+    scan = spinfer.temperature_scan(fit.fields, fit.couplings, fit.convention, [0.8, 1.0, 1.25],
+                                    n=2000, seed=1)
+    path = tmp_path / "fit.html"
+    spinfer.write_report(path, title="TAP fit", model=fit, check=check, scan=scan, truth=J)
+    text = path.read_text(encoding="utf-8")
+    assert "4000 × 5" in text and ">tap<" in text
+    assert len(images(text)) == 7
+    rows = report._agreement(check["means"], "means")
+    assert rows[1][3] == pytest.approx(0.0, abs=1e-9)  # the independent model fits the means exactly
