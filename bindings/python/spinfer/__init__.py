@@ -35,6 +35,18 @@ from .models import (  # noqa: E402
 from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
 from .checking import check, check_table  # noqa: E402
 from .sampling import sample, model_statistics, temperature_scan  # noqa: E402
+from .plots import (  # noqa: E402
+    cluster_order,
+    plot_couplings,
+    plot_model_vs_data,
+    plot_active_counts,
+    plot_specific_heat,
+    plot_coupling_histogram,
+    plot_recovered_vs_true,
+)
+from .network import edge_table, write_edge_list, network_graph, write_graphml  # noqa: E402
+from .scoring import score_against_gold  # noqa: E402
+from .report import write_report  # noqa: E402
 
 
 def build_info() -> str:
@@ -71,4 +83,17 @@ __all__ = [
     "sample",
     "model_statistics",
     "temperature_scan",
+    "cluster_order",
+    "plot_couplings",
+    "plot_model_vs_data",
+    "plot_active_counts",
+    "plot_specific_heat",
+    "plot_coupling_histogram",
+    "plot_recovered_vs_true",
+    "edge_table",
+    "write_edge_list",
+    "network_graph",
+    "write_graphml",
+    "score_against_gold",
+    "write_report",
 ]
