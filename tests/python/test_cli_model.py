@@ -78,3 +78,18 @@ def test_check_bad_inputs(cli, small_model, tmp_path):
     assert r.returncode == 66
     r = run(cli, "check", path, wrong, "--no-such-option")
     assert r.returncode == 2
+
+
+def test_scan_exact_matches_enumeration(cli, small_model, tmp_path):
+    model, path = small_model
+    out = tmp_path / "scan.json"
+    r = run(cli, "scan", path, "--temperatures", "0.5,1.0,1.5,3.0", "--out", out)
+    assert r.returncode == 0, r.stderr
+    j = json.loads(out.read_text())
+    assert j["method"] == "exact"
+    for t, e, c in zip(j["temperatures"], j["energy"], j["specific_heat"]):
+        ex = spinfer.exact_statistics(model, temperature=t)
+        assert e == pytest.approx(ex["mean_energy"], rel=1e-12)
+        assert c == pytest.approx(ex["specific_heat"], rel=1e-12)
+    assert min(j["temperatures"]) <= j["peak_temperature"] <= max(j["temperatures"])
+    assert run(cli, "scan", path, "--temperatures", "1:2").returncode == 65
