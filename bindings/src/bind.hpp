@@ -19,6 +19,7 @@ namespace py = pybind11;
 
 void bind_data(py::module_& m);
 void bind_check(py::module_& m);
+void bind_estimate(py::module_& m);
 void bind_model(py::module_& m);
 void bind_io(py::module_& m);
 void bind_sampler(py::module_& m);

@@ -25,6 +25,7 @@ PYBIND11_MODULE(_core, m) {
 
   spinfer::py_bind::bind_data(m);
   spinfer::py_bind::bind_check(m);
+  spinfer::py_bind::bind_estimate(m);
   spinfer::py_bind::bind_model(m);
   spinfer::py_bind::bind_io(m);
   spinfer::py_bind::bind_sampler(m);

@@ -34,6 +34,7 @@ from .models import (  # noqa: E402
 )
 from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
 from .checking import check, check_table  # noqa: E402
+from .estimate import fit, fit_methods, significance, significance_table, benjamini_hochberg  # noqa: E402
 from .sampling import sample, model_statistics, temperature_scan  # noqa: E402
 from .plots import (  # noqa: E402
     cluster_order,
@@ -65,6 +66,11 @@ __all__ = [
     "bootstrap_noise",
     "check",
     "check_table",
+    "fit",
+    "fit_methods",
+    "significance",
+    "significance_table",
+    "benjamini_hochberg",
     "IsingModel",
     "convert_model",
     "exact_statistics",
