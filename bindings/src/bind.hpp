@@ -7,6 +7,7 @@
 #include <pybind11/pybind11.h>
 #include <pybind11/stl.h>
 
+#include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
 
 namespace spinfer::py_bind {
@@ -17,11 +18,17 @@ void bind_data(py::module_& m);
 void bind_model(py::module_& m);
 void bind_io(py::module_& m);
 void bind_sampler(py::module_& m);
+void bind_partition(py::module_& m);
 
 /// A SpinMatrix viewing a numpy array without a copy when it is a C-contiguous 2-D uint8/bool
 /// array; other dtypes and layouts are converted only when `copy` is true, else ValueError.
 /// `convention` may be None (detect from the values).
 SpinMatrix matrix_from_numpy(const py::array& array, const py::object& convention, bool copy,
                              const std::string& source = "array");
+
+/// A progress callback for long calls made without the GIL: it takes the GIL briefly, runs the
+/// Python signal handlers (Ctrl-C -> KeyboardInterrupt) and then `user` (None: none), which gets a
+/// dict {stage, done, total, elapsed_s} and returns False to stop.
+ProgressCallback progress_callback(const py::object& user);
 
 }  // namespace spinfer::py_bind

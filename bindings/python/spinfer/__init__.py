@@ -34,6 +34,13 @@ from .models import (  # noqa: E402
 )
 from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
 from .sampling import sample, model_statistics, temperature_scan  # noqa: E402
+from .likelihood import (  # noqa: E402
+    log_partition,
+    log_likelihood,
+    entropy,
+    multi_information,
+    independent_entropy,
+)
 
 
 def build_info() -> str:
@@ -68,4 +75,9 @@ __all__ = [
     "sample",
     "model_statistics",
     "temperature_scan",
+    "log_partition",
+    "log_likelihood",
+    "entropy",
+    "multi_information",
+    "independent_entropy",
 ]
