@@ -12,8 +12,8 @@ log-likelihoods are in nats.
   "auto"           exact for N <= ``exact_max_units`` (default 20), else "ais"
 
 Keyword options (all functions):
-  base             independent reference model: "fields" (the model's fields, couplings off) or
-                   "mean-field" (naive mean-field effective fields)
+  base             independent reference model: "mean-field" (naive mean-field effective fields;
+                   the default) or "fields" (the model's own fields, couplings off)
   ais_runs, ais_steps, ais_sweeps, bootstrap   AIS: runs, intermediate distributions, Gibbs
                    sweeps per distribution, bootstrap replicates of the runs
   ti_nodes         thermodynamic integration: Gauss-Legendre nodes

