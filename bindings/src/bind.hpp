@@ -23,6 +23,7 @@ void bind_estimate(py::module_& m);
 void bind_model(py::module_& m);
 void bind_io(py::module_& m);
 void bind_sampler(py::module_& m);
+void bind_partition(py::module_& m);
 
 // Shared conversions (defined in bind_model.cpp and bind_sampler.cpp).
 py::dict model_to_dict(const IsingModel& m);

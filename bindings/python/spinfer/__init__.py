@@ -48,6 +48,13 @@ from .plots import (  # noqa: E402
 from .network import edge_table, write_edge_list, network_graph, write_graphml  # noqa: E402
 from .scoring import score_against_gold  # noqa: E402
 from .report import write_report  # noqa: E402
+from .likelihood import (  # noqa: E402
+    log_partition,
+    log_likelihood,
+    entropy,
+    multi_information,
+    independent_entropy,
+)
 
 
 def build_info() -> str:
@@ -102,4 +109,9 @@ __all__ = [
     "write_graphml",
     "score_against_gold",
     "write_report",
+    "log_partition",
+    "log_likelihood",
+    "entropy",
+    "multi_information",
+    "independent_entropy",
 ]
