@@ -8,6 +8,7 @@
 #include "spinfer/bootstrap.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/exact.hpp"
+#include "spinfer/partition.hpp"
 #include "spinfer/rng.hpp"
 #include "spinfer/stats.hpp"
 #include "spinfer/version.hpp"
@@ -222,11 +223,30 @@ CheckResult check_model(const IsingModel& model, const SpinMatrix& data, const C
     if (pi < 1) li += (1 - pi) * std::log(1 - pi);
   }
   r.log_likelihood_independent = li;
-  if (N <= kMaxExactUnits) {
-    r.log_likelihood = exact_log_likelihood(model, data, options.threads);
-    r.log_likelihood_exact = true;
-  } else {
-    r.log_likelihood = std::numeric_limits<double>::quiet_NaN();
+  r.log_likelihood = std::numeric_limits<double>::quiet_NaN();
+  if (options.likelihood) {
+    PartitionOptions po;
+    po.seed = options.seed;
+    po.threads = options.threads;
+    po.progress = options.progress;
+    const LikelihoodEstimate le = log_likelihood_per_sample(model, data, po);
+    r.log_likelihood = le.value;
+    r.log_likelihood_error = le.error;
+    r.log_likelihood_exact = le.log_partition.method == "exact";
+    const MultiInformation mi = multi_information_ratio(model, data, po);
+    auto num = [](double v) { return std::isfinite(v) ? nlohmann::json(v) : nlohmann::json(nullptr); };
+    r.information = {{"independent_entropy", num(mi.independent_entropy)},
+                     {"pairwise_entropy", num(mi.pairwise_entropy.value)},
+                     {"pairwise_entropy_error", num(mi.pairwise_entropy.error)},
+                     {"pattern_entropy", num(mi.pattern.plug_in)},
+                     {"multi_information", num(mi.multi_information)},
+                     {"pairwise_information", num(mi.pairwise_information)},
+                     {"ratio", num(mi.ratio)},
+                     {"ratio_error", num(mi.ratio_error)},
+                     {"ratio_corrected", num(mi.ratio_corrected)},
+                     {"reliable", mi.reliable},
+                     {"warnings", mi.warnings},
+                     {"log_partition_method", le.log_partition.method}};
   }
   return r;
 }
@@ -243,6 +263,7 @@ nlohmann::json check_to_json(const CheckResult& r, const std::vector<std::string
   }
   nlohmann::json ll = {{"independent", r.log_likelihood_independent}, {"exact", r.log_likelihood_exact}};
   ll["model"] = std::isfinite(r.log_likelihood) ? nlohmann::json(r.log_likelihood) : nlohmann::json(nullptr);
+  ll["model_error"] = r.log_likelihood_error;
   nlohmann::json j = {
       {"format", "spinfer-check"},
       {"format_version", 1},
@@ -254,6 +275,7 @@ nlohmann::json check_to_json(const CheckResult& r, const std::vector<std::string
       {"bootstrap", {{"replicates", r.bootstrap_replicates}, {"block_length", r.block_length}}},
       {"summary", summary},
       {"log_likelihood_per_sample", ll},
+      {"information", r.information},
       {"means", comparison_json(r.means)},
       {"correlations", comparison_json(r.correlations)},
       {"triplets", comparison_json(r.triplets)},

@@ -42,6 +42,7 @@ struct CheckOptions {
   std::int64_t model_samples = 0;           ///< Monte Carlo samples; 0 = max(20000, 2 T)
   SamplerOptions sampler;                   ///< method, chains, thinning... (samples/seed/threads
                                             ///< are overridden by the fields here)
+  bool likelihood = true;                   ///< estimate log-likelihood and entropies
   std::uint64_t seed = 0;
   int threads = 1;
   ProgressCallback progress;
@@ -66,9 +67,14 @@ struct CheckResult {
   std::vector<std::array<std::int64_t, 2>> pairs;       ///< (i, j), i < j, order of correlations
   std::vector<std::array<std::int64_t, 3>> triples;     ///< order of triplets
   Comparison means, correlations, triplets, active_counts;
-  /// Mean log-likelihood per sample of the data; exact only (N <= 24), else NaN.
-  double log_likelihood = 0, log_likelihood_independent = 0;
+  /// Mean log-likelihood per sample of the data (nats): exact for N <= 20, else by annealed
+  /// importance sampling (partition.hpp; a stochastic lower bound) with its standard error.
+  double log_likelihood = 0, log_likelihood_error = 0, log_likelihood_independent = 0;
   bool log_likelihood_exact = false;
+  /// Entropies (nats) and the multi-information ratio I_2 / I_N (Schneidman et al. 2006), with
+  /// `reliable` false when the data's pattern entropy cannot be trusted (too few samples per
+  /// distinct pattern) or the multi-information is not clearly above zero.
+  nlohmann::json information = nlohmann::json::object();
   nlohmann::json sampler_diagnostics = nlohmann::json::object();
 };
 
