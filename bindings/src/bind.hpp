@@ -14,6 +14,7 @@ namespace spinfer::py_bind {
 namespace py = pybind11;
 
 void bind_data(py::module_& m);
+void bind_fit(py::module_& m);
 
 /// A SpinMatrix viewing a numpy array without a copy when it is a C-contiguous 2-D uint8/bool
 /// array; other dtypes and layouts are converted only when `copy` is true, else ValueError.

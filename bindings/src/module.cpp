@@ -24,4 +24,5 @@ PYBIND11_MODULE(_core, m) {
   });
 
   spinfer::py_bind::bind_data(m);
+  spinfer::py_bind::bind_fit(m);
 }

@@ -9,6 +9,13 @@
 extern "C" int openblas_get_num_threads(void);
 
 namespace spinfer::detail {
+
+// Elementwise kernels (local_kernels.inc), two compiled copies.
+void plm_generic(const double*, const double*, double*, double*, std::int64_t, bool);
+void plm_avx2(const double*, const double*, double*, double*, std::int64_t, bool);
+void rise_generic(const double*, const double*, double*, double*, std::int64_t, bool);
+void rise_avx2(const double*, const double*, double*, double*, std::int64_t, bool);
+
 namespace {
 
 using Eigen::ArrayXXd;
@@ -25,31 +32,33 @@ constexpr double kSparseBelowDensity = 0.10;
 // Patterns are used when they cut the rows to iterate by at least this factor.
 constexpr double kPatternsBelowRatio = 0.6;
 
+// Largest dense +-1 copy of the data kept for the dense kernel (saves the per-evaluation byte to
+// double conversion, which otherwise costs about half as much as the products for small N).
+constexpr double kDenseCacheBytes = 256.0 * 1024 * 1024;
+
 // Fixed unit chunks (independent of the thread count, so results are too).
 std::int64_t chunk_size(std::int64_t N, bool sparse) {
   const std::int64_t minimum = sparse ? 64 : 16;
   return std::min(N, std::max<std::int64_t>(minimum, (N + 31) / 32));
 }
 
+bool cpu_has_avx2() {
+  static const bool yes = __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma");
+  return yes;
+}
+
 // phi and w * phi' for one block; S holds s = +-1, H the local fields.
-//   pseudo-likelihood: phi = log 2cosh H - s H = |H| + log1p(e^{-2|H|}) - s H,
-//                      phi' = tanh H - s   (Besag 1975; sheet §1.6)
-//   screening:         phi = e^{-s H},  phi' = -s e^{-s H}   (Vuffray et al. 2016; sheet §1.7)
+//   pseudo-likelihood: phi = log 2cosh H - s H, phi' = tanh H - s   (Besag 1975; sheet §1.6)
+//   screening:         phi = e^{-s H},  phi' = -s e^{-s H}          (Vuffray et al. 2016; §1.7)
 void nonlinearity(LocalLoss loss, const ArrayXXd& H, const ArrayXXd& S, const double* w,
-                  bool gradient, ArrayXXd& phi, ArrayXXd& R, ArrayXXd& e) {
+                  bool gradient, ArrayXXd& phi, ArrayXXd& R) {
   const Index cols = H.cols();
-  if (loss == LocalLoss::pseudo_likelihood) {
-    e = (-2.0 * H.abs()).exp();
-    phi = H.abs() + e.log1p() - S * H;
-    if (gradient) {
-      R = (1.0 - e) / (1.0 + e);
-      R = (H < 0.0).select(-R, R) - S;
-    }
-  } else {
-    e = (-S * H).exp();
-    phi = e;
-    if (gradient) R = -S * e;
-  }
+  phi.resize(H.rows(), cols);
+  if (gradient) R.resize(H.rows(), cols);
+  const bool avx2 = cpu_has_avx2();
+  auto kernel = loss == LocalLoss::pseudo_likelihood ? (avx2 ? plm_avx2 : plm_generic)
+                                                     : (avx2 ? rise_avx2 : rise_generic);
+  kernel(H.data(), S.data(), phi.data(), gradient ? R.data() : nullptr, H.size(), gradient);
   if (w) {
     for (Index b = 0; b < cols; ++b) {
       phi.col(b) *= w[b];
@@ -89,7 +98,12 @@ PreparedData::PreparedData(const SpinMatrix& data, const std::string& representa
   if (r == "sparse" || r == "patterns-sparse") sparse_ = true;
   else if (r == "dense" || r == "patterns-dense") sparse_ = false;
   else sparse_ = estimate_density(rows) < kSparseBelowDensity;
-  if (sparse_) active_ = active_lists(rows, threads);
+  if (sparse_) {
+    active_ = active_lists(rows, threads);
+  } else if (8.0 * double(rows.rows()) * double(rows.cols()) <= kDenseCacheBytes) {
+    ByteMap bytes(rows.data(), rows.cols(), rows.rows(), Eigen::OuterStride<>(rows.cols()));
+    dense_cache_ = bytes.cast<double>() * 2.0 - MatrixXd::Ones(rows.cols(), rows.rows());
+  }
 }
 
 std::string PreparedData::description() const {
@@ -175,7 +189,7 @@ void LocalFields::evaluate_chunk(LocalLoss loss, const MatrixXd& theta, const Ve
   const bool sparse = prep_->sparse_kernel();
   const std::int64_t block = sparse ? 512 : 1024;
   const bool weighted = !weights_.empty();
-  ArrayXXd H(nc, block), S(nc, block), phi, R, e;
+  ArrayXXd H(nc, block), S(nc, block), phi, R;
   VectorXd loss_c = VectorXd::Zero(nc), gh_c = VectorXd::Zero(nc);
 
   if (sparse) {
@@ -199,7 +213,7 @@ void LocalFields::evaluate_chunk(LocalLoss loss, const MatrixXd& theta, const Ve
           const std::uint8_t* x = rows_->row(b0 + b) + i0;
           for (std::int64_t i = 0; i < nc; ++i) S(i, b) = 2.0 * x[i] - 1.0;
         }
-        nonlinearity(loss, H, S, weighted ? weights_.data() + b0 : nullptr, gradient, phi, R, e);
+        nonlinearity(loss, H, S, weighted ? weights_.data() + b0 : nullptr, gradient, phi, R);
         loss_c += phi.matrix().rowwise().sum();
         if (gradient) {
           gh_c += R.matrix().rowwise().sum();
@@ -217,28 +231,35 @@ void LocalFields::evaluate_chunk(LocalLoss loss, const MatrixXd& theta, const Ve
       grad.middleCols(i0, nc).rowwise() -= gh_c.transpose();
     }
   } else {
-    MatrixXd ST(N, block);  // rows of the block as columns, s = 2x - 1
+    MatrixXd ST;  // rows of the block as columns, s = 2x - 1 (when there is no cache)
+    const MatrixXd& cache = prep_->dense_cache_;
     const MatrixXd theta_c = theta.middleCols(i0, nc);
     const VectorXd h_c = h.segment(i0, nc);
-    MatrixXd Hm(nc, block), Rt;
+    MatrixXd Hm(nc, block);
     MatrixXd grad_c;
     if (gradient) grad_c.setZero(N, nc);
+    auto step = [&](const auto& STb, std::int64_t b0, std::int64_t nb) {
+      Hm.resize(nc, nb);
+      Hm.noalias() = theta_c.transpose() * STb;  // GEMM
+      Hm.colwise() += h_c;
+      H = Hm.array();
+      S = STb.middleRows(i0, nc).array();
+      nonlinearity(loss, H, S, weighted ? weights_.data() + b0 : nullptr, gradient, phi, R);
+      loss_c += phi.matrix().rowwise().sum();
+      if (gradient) {
+        gh_c += R.matrix().rowwise().sum();
+        grad_c.noalias() += STb * R.matrix().transpose();  // GEMM
+      }
+    };
     for (const RowRange& g : ranges_) {
       for (std::int64_t b0 = g.begin; b0 < g.end; b0 += block) {
         const std::int64_t nb = std::min(block, g.end - b0);
-        ByteMap bytes(rows_->row(b0), N, nb, Eigen::OuterStride<>(N));
-        ST.resize(N, nb);
-        ST = bytes.cast<double>() * 2.0 - MatrixXd::Ones(N, nb);
-        Hm.resize(nc, nb);
-        Hm.noalias() = theta_c.transpose() * ST;  // GEMM
-        Hm.colwise() += h_c;
-        H = Hm.array();
-        S = ST.middleRows(i0, nc).array();
-        nonlinearity(loss, H, S, weighted ? weights_.data() + b0 : nullptr, gradient, phi, R, e);
-        loss_c += phi.matrix().rowwise().sum();
-        if (gradient) {
-          gh_c += R.matrix().rowwise().sum();
-          grad_c.noalias() += ST * R.matrix().transpose();  // GEMM
+        if (cache.size() > 0) {
+          step(cache.middleCols(b0, nb), b0, nb);
+        } else {
+          ByteMap bytes(rows_->row(b0), N, nb, Eigen::OuterStride<>(N));
+          ST = bytes.cast<double>() * 2.0 - MatrixXd::Ones(N, nb);
+          step(ST, b0, nb);
         }
       }
     }

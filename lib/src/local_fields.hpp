@@ -55,6 +55,9 @@ class PreparedData {
   bool sparse_ = false;
   PatternTable table_;   // when patterns are used (with the row map)
   ActiveLists active_;   // when the sparse kernel is used (of the rows it iterates)
+  // Dense kernel: s = 2x - 1 of the rows it iterates as an N x rows double matrix, kept when it
+  // takes at most kDenseCacheBytes (else blocks are converted on the fly in each evaluation).
+  Eigen::MatrixXd dense_cache_;
 };
 
 /// A selection of rows of prepared data (a training fold, or everything).

@@ -67,6 +67,7 @@ class Problem {
 
   // Smooth part of the objective (everything but L1) and its gradient.
   double evaluate(const double* x, double* g) {
+    ++evaluations;
     unpack(x);
     f_.evaluate(s_.loss, theta_, h_, true, loss_, grad_, grad_h_);
     if (!loss_.allFinite() || !grad_.allFinite())
@@ -126,6 +127,8 @@ class Problem {
     }
     return res;
   }
+
+  std::int64_t evaluations = 0;
 
   double l1_term(const double* x) const {
     return owlqn_c() * Eigen::Map<const VectorXd>(x, couplings_).lpNorm<1>();
@@ -277,6 +280,7 @@ LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& s,
     out.J = 0.5 * (theta + theta.transpose());  // average the two estimates of each pair
   }
   out.iterations = d.iterations;
+  out.evaluations = problem.evaluations;
   out.objective = d.objective;
   out.converged = d.converged;
   for (Index i = 0; i < N; ++i)
@@ -433,6 +437,7 @@ IsingModel fit_local_model(const SpinMatrix& data, const LocalFitRequest& req) {
   p.extra["representation"] = prepared.description();
   p.extra["unconverged_units"] = r.unconverged;
   p.extra["tolerance"] = s.tolerance;
+  p.extra["evaluations"] = r.evaluations;
   if (!selection.is_null()) p.extra["penalty_selection"] = selection;
   return m;
 }

@@ -32,6 +32,7 @@ struct LocalFitResult {
   Eigen::VectorXd h;
   Eigen::MatrixXd J;         ///< symmetric (averaged or tied), zero diagonal
   std::int64_t iterations = 0;
+  std::int64_t evaluations = 0;  ///< objective + gradient evaluations (the cost unit)
   bool converged = false;
   double objective = 0;
   std::vector<std::int64_t> unconverged;

@@ -13,6 +13,9 @@ if _core.__version__ != __version__:  # a stale extension next to newer Python c
     )
 
 from ._data import as_matrix, moments, active_count_distribution, connected_triplets, unique_patterns  # noqa: E402
+from .fitting import (  # noqa: E402
+    fit_pseudo_likelihood, fit_screening, penalty_path, default_penalty_grid, pseudo_log_likelihood,
+)
 
 
 def build_info() -> str:
@@ -28,4 +31,9 @@ __all__ = [
     "active_count_distribution",
     "connected_triplets",
     "unique_patterns",
+    "fit_pseudo_likelihood",
+    "fit_screening",
+    "penalty_path",
+    "default_penalty_grid",
+    "pseudo_log_likelihood",
 ]

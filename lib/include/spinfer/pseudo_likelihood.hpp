@@ -42,7 +42,7 @@ struct PseudoLikelihoodOptions {
   double l1 = 0;                         ///< L1 penalty per unit (automatic_penalty: held out)
   double l2 = automatic_penalty;         ///< L2 penalty per unit (automatic_penalty: held out)
   int max_iterations = 1000;             ///< L-BFGS iterations
-  double tolerance = 1e-6;               ///< largest per-sample gradient entry at convergence
+  double tolerance = 1e-5;               ///< largest per-sample gradient entry at convergence
   int threads = 0;                       ///< <= 0: automatic (resolve_threads)
   std::optional<IsingModel> warm_start;  ///< starting point (either convention; same units)
   ProgressCallback progress;             ///< called every iteration; false => Interrupted

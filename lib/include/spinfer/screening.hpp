@@ -28,7 +28,7 @@ struct ScreeningOptions {
   double l1 = automatic_penalty;         ///< L1 penalty per unit (automatic: held out)
   double l2 = 0;                         ///< L2 penalty per unit (automatic: held out)
   int max_iterations = 1000;
-  double tolerance = 1e-6;               ///< largest per-sample (sub)gradient entry
+  double tolerance = 1e-5;               ///< largest per-sample (sub)gradient entry
   int threads = 0;
   std::optional<IsingModel> warm_start;
   ProgressCallback progress;
