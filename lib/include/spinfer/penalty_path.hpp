@@ -27,7 +27,9 @@ struct PenaltyPath {
   std::vector<double> penalties;   ///< grid, decreasing
   std::vector<double> mean_score;  ///< mean over folds of the held-out score (higher is better)
   std::vector<double> se_score;    ///< standard error of that mean (sd over folds / sqrt(k))
-  double chosen = 0;               ///< the selected penalty
+  /// The selected penalty, as used on training folds of T (k-1)/k rows; for a fit on all T rows
+  /// scale it by (k-1)/k (l2, optimum ~ 1/T) or sqrt((k-1)/k) (l1), as the automatic choice does.
+  double chosen = 0;
   std::string kind;                ///< "l1" or "l2"
   std::string rule;                ///< "best mean" or "one standard error"
   int folds = 0;
