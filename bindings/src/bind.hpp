@@ -32,6 +32,7 @@ py::object json_to_py(const nlohmann::json& j);
 /// Progress callback for long calls: takes the GIL briefly, runs Python signal handlers (Ctrl-C
 /// -> KeyboardInterrupt) and an optional user callable(dict) -> bool.
 ProgressCallback progress_callback(const py::object& user);
+void bind_fit(py::module_& m);
 
 /// A SpinMatrix viewing a numpy array without a copy when it is a C-contiguous 2-D uint8/bool
 /// array; other dtypes and layouts are converted only when `copy` is true, else ValueError.

@@ -30,4 +30,5 @@ PYBIND11_MODULE(_core, m) {
   spinfer::py_bind::bind_io(m);
   spinfer::py_bind::bind_sampler(m);
   spinfer::py_bind::bind_partition(m);
+  spinfer::py_bind::bind_fit(m);
 }

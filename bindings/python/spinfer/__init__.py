@@ -54,6 +54,8 @@ from .likelihood import (  # noqa: E402
     entropy,
     multi_information,
     independent_entropy,
+from .fitting import (  # noqa: E402
+    fit_pseudo_likelihood, fit_screening, penalty_path, default_penalty_grid, pseudo_log_likelihood,
 )
 
 
@@ -114,4 +116,9 @@ __all__ = [
     "entropy",
     "multi_information",
     "independent_entropy",
+    "fit_pseudo_likelihood",
+    "fit_screening",
+    "penalty_path",
+    "default_penalty_grid",
+    "pseudo_log_likelihood",
 ]

@@ -1,0 +1,112 @@
+// Private engine behind pseudo-likelihood and interaction screening: for a coefficient matrix
+// Theta (N x N, column i = couplings into unit i, diagonal zero) and fields h it evaluates, in the
+// spin convention s = 2x - 1,
+//   H_bi   = h_i + sum_j s_bj Theta_ji                       (local fields, all units at once)
+//   loss_i = sum_b w_b phi(s_bi, H_bi)                        (not divided by the total weight)
+//   grad_ji = sum_b s_bj w_b phi'(s_bi, H_bi),  grad_h_i = sum_b w_b phi'(s_bi, H_bi)
+// with phi = log 2cosh H - s H (pseudo-likelihood) or exp(-s H) (interaction screening).
+//
+// The two products go through one of three representations, chosen once per data set:
+//   dense   : blocks of rows converted to doubles, products through BLAS (GEMM);
+//   sparse  : active lists; S Theta = 2 X Theta - 1 colsum(Theta), so only active entries cost;
+//   patterns: distinct rows with counts (either kernel above then runs over the patterns).
+// Work is split over fixed chunks of units (columns of Theta) that do not depend on the thread
+// count, and each chunk runs over all rows in a fixed order, so results are bit-identical for
+// any number of threads. Memory: O(N^2 + N * block rows) per thread; never T x N doubles.
+#pragma once
+
+#include <cstdint>
+#include <string>
+#include <utility>
+#include <vector>
+
+#include <Eigen/Dense>
+
+#include "spinfer/patterns.hpp"
+#include "spinfer/spin_matrix.hpp"
+
+namespace spinfer::detail {
+
+enum class LocalLoss { pseudo_likelihood, screening };
+
+struct RowRange {
+  std::int64_t begin = 0, end = 0;
+};
+
+/// A representation chosen for one data set; shared by the fits of a penalty path.
+class PreparedData {
+ public:
+  /// representation: "auto", "dense", "sparse", "patterns" (patterns + kernel chosen by density),
+  /// "patterns-dense", "patterns-sparse". Throws InputError for other names.
+  PreparedData(const SpinMatrix& data, const std::string& representation, int threads);
+
+  const SpinMatrix& original() const { return *original_; }
+  bool uses_patterns() const { return patterns_used_; }
+  bool sparse_kernel() const { return sparse_; }
+  /// "dense", "sparse", "patterns-dense" or "patterns-sparse".
+  std::string description() const;
+  /// Rows the kernels iterate over (patterns, or the original rows).
+  std::int64_t kernel_rows() const;
+
+ private:
+  friend class LocalFields;
+  const SpinMatrix* original_;
+  bool patterns_used_ = false;
+  bool sparse_ = false;
+  PatternTable table_;   // when patterns are used (with the row map)
+  ActiveLists active_;   // when the sparse kernel is used (of the rows it iterates)
+  // Dense kernel: s = 2x - 1 of the rows it iterates as an N x rows double matrix, kept when it
+  // takes at most kDenseCacheBytes (else blocks are converted on the fly in each evaluation).
+  Eigen::MatrixXd dense_cache_;
+};
+
+/// A selection of rows of prepared data (a training fold, or everything).
+class LocalFields {
+ public:
+  /// All rows.
+  explicit LocalFields(const PreparedData& prepared, int threads);
+  /// Only the listed ranges of original rows (e.g. all folds but one).
+  LocalFields(const PreparedData& prepared, const std::vector<RowRange>& ranges, int threads);
+
+  std::int64_t units() const { return N_; }
+  std::int64_t samples() const { return samples_; }   ///< original rows selected
+  double total_weight() const { return total_weight_; }
+  const PreparedData& prepared() const { return *prep_; }
+
+  /// Evaluates loss sums (N) and, if `gradient`, grad (N x N, diagonal set to 0) and grad_h (N).
+  void evaluate(LocalLoss loss, const Eigen::MatrixXd& theta, const Eigen::VectorXd& h,
+                bool gradient, Eigen::VectorXd& loss_sums, Eigen::MatrixXd& grad,
+                Eigen::VectorXd& grad_h) const;
+
+  /// Weighted means of s (N), for initial fields.
+  Eigen::VectorXd spin_means() const;
+
+ private:
+  void evaluate_chunk(LocalLoss loss, const Eigen::MatrixXd& theta, const Eigen::VectorXd& h,
+                      bool gradient, std::int64_t i0, std::int64_t nc, Eigen::VectorXd& loss_sums,
+                      Eigen::MatrixXd& grad, Eigen::VectorXd& grad_h) const;
+  double weight(std::int64_t r) const { return weights_.empty() ? 1.0 : weights_[std::size_t(r)]; }
+
+  const PreparedData* prep_;
+  const SpinMatrix* rows_;          // the matrix the kernels iterate over
+  std::vector<RowRange> ranges_;    // ranges of rows_ to iterate
+  std::vector<double> weights_;     // per row of rows_; empty = all 1
+  std::int64_t N_ = 0, samples_ = 0;
+  double total_weight_ = 0;
+  int threads_ = 1;
+};
+
+/// Restores OpenBLAS's thread count on scope exit; sets it to 1 meanwhile (we own threading and
+/// single-threaded BLAS calls keep results independent of the thread count).
+class SingleThreadedBlas {
+ public:
+  SingleThreadedBlas();
+  ~SingleThreadedBlas();
+  SingleThreadedBlas(const SingleThreadedBlas&) = delete;
+  SingleThreadedBlas& operator=(const SingleThreadedBlas&) = delete;
+
+ private:
+  int previous_;
+};
+
+}  // namespace spinfer::detail
