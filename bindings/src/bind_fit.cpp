@@ -11,32 +11,6 @@
 namespace spinfer::py_bind {
 namespace {
 
-py::object json_to_python(const nlohmann::json& j) {
-  return py::module_::import("json").attr("loads")(j.dump());
-}
-
-py::dict model_to_dict(const IsingModel& m) {
-  const Provenance& p = m.provenance;
-  py::dict prov;
-  prov["method"] = p.method;
-  prov["l1"] = p.l1;
-  prov["l2"] = p.l2;
-  prov["iterations"] = p.iterations;
-  prov["converged"] = p.converged;
-  prov["objective"] = p.objective;
-  prov["samples"] = p.samples;
-  prov["units"] = p.units;
-  prov["version"] = p.version;
-  prov["extra"] = json_to_python(p.extra);
-  py::dict d;
-  d["fields"] = m.fields;
-  d["couplings"] = m.couplings;
-  d["convention"] = to_string(m.convention);
-  d["names"] = m.names;
-  d["provenance"] = prov;
-  return d;
-}
-
 std::optional<IsingModel> model_from(const py::object& fields, const py::object& couplings,
                                      const std::string& convention) {
   if (fields.is_none()) return std::nullopt;

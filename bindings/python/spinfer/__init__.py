@@ -54,6 +54,7 @@ from .likelihood import (  # noqa: E402
     entropy,
     multi_information,
     independent_entropy,
+)
 from .fitting import (  # noqa: E402
     fit_pseudo_likelihood, fit_screening, penalty_path, default_penalty_grid, pseudo_log_likelihood,
 )
