@@ -23,12 +23,12 @@ FitOptions fit_options(const py::dict& d) {
   for (auto item : d) {
     const std::string k = item.first.cast<std::string>();
     const py::handle v = item.second;
-    if (v.is_none() && k != "l1" && k != "l2") continue;
+    if (v.is_none()) continue;
     if (k == "method") o.method = v.cast<std::string>();
     else if (k == "symmetric") o.symmetric = v.cast<bool>();
     else if (k == "logarithmic") o.logarithmic = v.cast<bool>();
-    else if (k == "l1") o.l1 = v.is_none() ? 0.0 : penalty(v);
-    else if (k == "l2") o.l2 = v.is_none() ? 0.0 : penalty(v);
+    else if (k == "l1") o.l1 = penalty(v);
+    else if (k == "l2") o.l2 = penalty(v);
     else if (k == "shrinkage") o.shrinkage = v.cast<double>();
     else if (k == "mean_field_fallback") o.mean_field_fallback = v.cast<bool>();
     else if (k == "max_iterations") o.max_iterations = v.cast<int>();

@@ -2,12 +2,15 @@
 
 #include "spinfer/closed_form.hpp"
 #include "spinfer/errors.hpp"
+#include "spinfer/pseudo_likelihood.hpp"
+#include "spinfer/screening.hpp"
 #include "spinfer/stats.hpp"
 
 namespace spinfer {
 
 std::vector<std::string> fit_methods() {
-  std::vector<std::string> m = closed_form_methods();
+  std::vector<std::string> m = {"pseudo-likelihood", "screening"};
+  for (const auto& c : closed_form_methods()) m.push_back(c);
   return m;
 }
 
@@ -24,6 +27,36 @@ IsingModel fit_model(const SpinMatrix& data, const FitOptions& o) {
     co.shrinkage = o.shrinkage;
     co.mean_field_fallback = o.mean_field_fallback;
     model = fit_closed_form(compute_moments(data, Convention::spin, so), o.method, co);
+  }
+  if (o.method == "pseudo-likelihood") {
+    known = true;
+    PseudoLikelihoodOptions po;
+    po.symmetric = o.symmetric;
+    if (o.l1) po.l1 = *o.l1;
+    if (o.l2) po.l2 = *o.l2;
+    po.max_iterations = o.max_iterations;
+    po.tolerance = o.tolerance;
+    po.threads = o.threads;
+    po.warm_start = o.warm_start;
+    po.progress = o.progress;
+    po.representation = o.representation;
+    model = fit_pseudo_likelihood(data, po);
+  } else if (o.method == "screening") {
+    known = true;
+    ScreeningOptions so;
+    so.logarithmic = o.logarithmic;
+    so.symmetric = o.symmetric;
+    if (o.l1) so.l1 = *o.l1;
+    if (o.l2) so.l2 = *o.l2;
+    so.max_iterations = o.max_iterations;
+    so.tolerance = o.tolerance;
+    so.threads = o.threads;
+    so.warm_start = o.warm_start;
+    so.progress = o.progress;
+    so.representation = o.representation;
+    model = fit_screening(data, so);
+  } else if (known && (o.l1.value_or(0) != 0 || o.l2.value_or(0) != 0)) {
+    throw InputError("method '" + o.method + "' takes no penalty (--l1/--l2); use shrinkage instead");
   }
   if (!known) {
     std::string list;

@@ -58,7 +58,7 @@ def bootstrap_noise(X, convention: str = "binary", triples=(), replicates: int =
     """Block-bootstrap standard errors of means, connected correlations, P(K) and triplets.
 
     Bins of a recording are correlated in time, so whole blocks of ``block_length`` consecutive
-    samples are resampled (0 = automatic: twice the integrated autocorrelation time of the number
+    samples are resampled (0 = automatic: ten times the integrated autocorrelation time of the number
     of active units). Returns a dict with ``mean_se``, ``connected_se``, ``count_se``,
     ``triplet_se``, ``block_length`` and ``replicates``.
     """

@@ -15,15 +15,17 @@
 
 namespace spinfer {
 
-/// Marks a penalty to be chosen on held-out data.
+/// Marks a penalty to be chosen on held-out data (k-fold, contiguous folds; penalty_path.hpp).
 constexpr double kAutomaticPenalty = -1.0;
 
 struct FitOptions {
   std::string method = "pseudo-likelihood";
   bool symmetric = false;          ///< pseudo-likelihood / screening: tie J_ij = J_ji
   bool logarithmic = false;        ///< screening: log-RISE instead of RISE
-  double l1 = 0;                   ///< kAutomaticPenalty = chosen on held-out data
-  double l2 = kAutomaticPenalty;   ///< pseudo-likelihood default: chosen on held-out data
+  /// Per-sample penalties; kAutomaticPenalty = chosen on held-out data; unset = the method's
+  /// default (pseudo-likelihood: l2 chosen on held-out data, l1 = 0; screening: l1 chosen on
+  /// held-out data, l2 = 0). Closed forms take no penalty.
+  std::optional<double> l1, l2;
   double shrinkage = 0;            ///< closed forms: C -> (1 - s) C + s diag(C)
   bool mean_field_fallback = false;///< closed forms: mean-field value where TAP/Bethe have no root
   int max_iterations = 1000;
