@@ -7,6 +7,8 @@
 #include <pybind11/pybind11.h>
 #include <pybind11/stl.h>
 
+#include "spinfer/model.hpp"
+#include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
 
 namespace spinfer::py_bind {
@@ -17,11 +19,21 @@ void bind_data(py::module_& m);
 void bind_model(py::module_& m);
 void bind_io(py::module_& m);
 void bind_sampler(py::module_& m);
+void bind_refine(py::module_& m);
 
 /// A SpinMatrix viewing a numpy array without a copy when it is a C-contiguous 2-D uint8/bool
 /// array; other dtypes and layouts are converted only when `copy` is true, else ValueError.
 /// `convention` may be None (detect from the values).
 SpinMatrix matrix_from_numpy(const py::array& array, const py::object& convention, bool copy,
                              const std::string& source = "array");
+
+/// An IsingModel <-> the dict spinfer.IsingModel wraps (bind_model.cpp).
+py::dict model_to_dict(const IsingModel& model);
+IsingModel model_from_dict(const py::dict& d);
+
+/// A progress callback for calls made without the GIL: it takes the GIL, runs Python's signal
+/// handlers (Ctrl-C -> KeyboardInterrupt) and then `user` (None or callable(dict) -> bool)
+/// (bind_sampler.cpp).
+ProgressCallback progress_callback(const py::object& user);
 
 }  // namespace spinfer::py_bind

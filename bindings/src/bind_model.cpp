@@ -82,6 +82,21 @@ Eigen::MatrixXd matrix_arg(const py::handle& o, const std::string& name) {
   return Eigen::Map<const RowMajor>(a.data(), a.shape(0), a.shape(1));
 }
 
+Moments moments_from_dict(const py::dict& d) {
+  for (const char* k : {"convention", "mean", "connected"})
+    if (!d.contains(k)) throw InputError(std::string("moments: missing '") + k + "'");
+  Moments m;
+  m.convention = parse_convention(d["convention"].cast<std::string>());
+  m.mean = vector_arg(d["mean"], "moments mean");
+  m.connected = matrix_arg(d["connected"], "moments connected");
+  if (d.contains("second") && !d["second"].is_none()) m.second = matrix_arg(d["second"], "moments second");
+  if (d.contains("samples")) m.samples = d["samples"].cast<std::int64_t>();
+  if (d.contains("total_weight")) m.total_weight = d["total_weight"].cast<double>();
+  return m;
+}
+
+}  // namespace
+
 py::dict model_to_dict(const IsingModel& m) {
   py::dict d;
   d["convention"] = to_string(m.convention);
@@ -106,21 +121,6 @@ IsingModel model_from_dict(const py::dict& d) {
   validate_model(m, "model");
   return m;
 }
-
-Moments moments_from_dict(const py::dict& d) {
-  for (const char* k : {"convention", "mean", "connected"})
-    if (!d.contains(k)) throw InputError(std::string("moments: missing '") + k + "'");
-  Moments m;
-  m.convention = parse_convention(d["convention"].cast<std::string>());
-  m.mean = vector_arg(d["mean"], "moments mean");
-  m.connected = matrix_arg(d["connected"], "moments connected");
-  if (d.contains("second") && !d["second"].is_none()) m.second = matrix_arg(d["second"], "moments second");
-  if (d.contains("samples")) m.samples = d["samples"].cast<std::int64_t>();
-  if (d.contains("total_weight")) m.total_weight = d["total_weight"].cast<double>();
-  return m;
-}
-
-}  // namespace
 
 void bind_model(py::module_& m) {
   m.def("validate_model", [](const py::dict& d) { return model_to_dict(model_from_dict(d)); },

@@ -9,20 +9,9 @@
 #include "spinfer/sampler.hpp"
 
 namespace spinfer::py_bind {
-namespace {
-
-IsingModel model_from_arrays(const Eigen::VectorXd& fields, const Eigen::MatrixXd& couplings,
-                             const std::string& convention) {
-  IsingModel m;
-  m.convention = parse_convention(convention);
-  m.fields = fields;
-  m.couplings = couplings;
-  validate_model(m, "model");
-  return m;
-}
 
 /// A Python callable shared without touching its reference count off the GIL.
-std::shared_ptr<py::object> shared_callable(const py::object& f) {
+static std::shared_ptr<py::object> shared_callable(const py::object& f) {
   auto* held = new py::object(f);
   return std::shared_ptr<py::object>(held, [](py::object* p) {
     py::gil_scoped_acquire gil;
@@ -40,10 +29,23 @@ ProgressCallback progress_callback(const py::object& user) {
     d["stage"] = p.stage;
     d["done"] = p.done;
     d["total"] = p.total;
+    d["objective"] = p.objective;
     d["elapsed_s"] = p.elapsed_s;
     const py::object r = (*f)(d);
     return r.is_none() || r.cast<bool>();
   };
+}
+
+namespace {
+
+IsingModel model_from_arrays(const Eigen::VectorXd& fields, const Eigen::MatrixXd& couplings,
+                             const std::string& convention) {
+  IsingModel m;
+  m.convention = parse_convention(convention);
+  m.fields = fields;
+  m.couplings = couplings;
+  validate_model(m, "model");
+  return m;
 }
 
 SamplerOptions options_from_dict(const py::dict& d) {

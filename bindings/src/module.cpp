@@ -27,4 +27,5 @@ PYBIND11_MODULE(_core, m) {
   spinfer::py_bind::bind_model(m);
   spinfer::py_bind::bind_io(m);
   spinfer::py_bind::bind_sampler(m);
+  spinfer::py_bind::bind_refine(m);
 }

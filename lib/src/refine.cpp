@@ -453,7 +453,7 @@ Preconditioner make_preconditioner(const SpinMatrix& data, const Target& d, cons
   const std::int64_t N = d.m.size(), P = N + N * (N - 1) / 2;
   Preconditioner p;
   p.kind = o.preconditioner;
-  if (p.kind == "auto") p.kind = P <= 600 ? "full" : "diagonal";
+  if (p.kind == "auto") p.kind = P <= 1300 ? "full" : "diagonal";
   const DataCovariance chi(data, d);
   if (p.kind == "full") {
     Eigen::MatrixXd M = chi.matrix();

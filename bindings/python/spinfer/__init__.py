@@ -34,6 +34,7 @@ from .models import (  # noqa: E402
 )
 from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
 from .sampling import sample, model_statistics, temperature_scan  # noqa: E402
+from .refinement import refine  # noqa: E402
 
 
 def build_info() -> str:
@@ -68,4 +69,5 @@ __all__ = [
     "sample",
     "model_statistics",
     "temperature_scan",
+    "refine",
 ]
