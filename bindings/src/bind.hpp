@@ -33,6 +33,7 @@ py::object json_to_py(const nlohmann::json& j);
 /// -> KeyboardInterrupt) and an optional user callable(dict) -> bool.
 ProgressCallback progress_callback(const py::object& user);
 void bind_fit(py::module_& m);
+void bind_refine(py::module_& m);
 
 /// A SpinMatrix viewing a numpy array without a copy when it is a C-contiguous 2-D uint8/bool
 /// array; other dtypes and layouts are converted only when `copy` is true, else ValueError.

@@ -189,6 +189,7 @@ void bind_data(py::module_& m) {
         py::dict d;
         d["mean_se"] = n.mean_se;
         d["connected_se"] = n.connected_se;
+        d["second_se"] = n.second_se;
         d["count_se"] = n.count_se;
         d["triplet_se"] = n.triplet_se;
         d["block_length"] = n.block_length;

@@ -11,8 +11,11 @@
 #include "spinfer/model_io.hpp"
 
 namespace spinfer::py_bind {
+namespace {
 
 // nlohmann::json <-> Python objects (provenance "extra" holds arbitrary JSON).
+}  // namespace
+
 py::object json_to_py(const nlohmann::json& j) {
   switch (j.type()) {
     case nlohmann::json::value_t::null: return py::none();
@@ -34,6 +37,8 @@ py::object json_to_py(const nlohmann::json& j) {
     default: return py::none();
   }
 }
+
+namespace {
 
 nlohmann::json py_to_json(const py::handle& o, const std::string& where_text) {
   if (o.is_none()) return nullptr;
@@ -81,6 +86,21 @@ Eigen::MatrixXd matrix_arg(const py::handle& o, const std::string& name) {
   return Eigen::Map<const RowMajor>(a.data(), a.shape(0), a.shape(1));
 }
 
+Moments moments_from_dict(const py::dict& d) {
+  for (const char* k : {"convention", "mean", "connected"})
+    if (!d.contains(k)) throw InputError(std::string("moments: missing '") + k + "'");
+  Moments m;
+  m.convention = parse_convention(d["convention"].cast<std::string>());
+  m.mean = vector_arg(d["mean"], "moments mean");
+  m.connected = matrix_arg(d["connected"], "moments connected");
+  if (d.contains("second") && !d["second"].is_none()) m.second = matrix_arg(d["second"], "moments second");
+  if (d.contains("samples")) m.samples = d["samples"].cast<std::int64_t>();
+  if (d.contains("total_weight")) m.total_weight = d["total_weight"].cast<double>();
+  return m;
+}
+
+}  // namespace
+
 py::dict model_to_dict(const IsingModel& m) {
   py::dict d;
   d["convention"] = to_string(m.convention);
@@ -103,19 +123,6 @@ IsingModel model_from_dict(const py::dict& d) {
   if (d.contains("provenance") && !d["provenance"].is_none())
     m.provenance = provenance_from_json(py_to_json(d["provenance"], "provenance"), "model");
   validate_model(m, "model");
-  return m;
-}
-
-Moments moments_from_dict(const py::dict& d) {
-  for (const char* k : {"convention", "mean", "connected"})
-    if (!d.contains(k)) throw InputError(std::string("moments: missing '") + k + "'");
-  Moments m;
-  m.convention = parse_convention(d["convention"].cast<std::string>());
-  m.mean = vector_arg(d["mean"], "moments mean");
-  m.connected = matrix_arg(d["connected"], "moments connected");
-  if (d.contains("second") && !d["second"].is_none()) m.second = matrix_arg(d["second"], "moments second");
-  if (d.contains("samples")) m.samples = d["samples"].cast<std::int64_t>();
-  if (d.contains("total_weight")) m.total_weight = d["total_weight"].cast<double>();
   return m;
 }
 

@@ -29,6 +29,7 @@ ProgressCallback progress_callback(const py::object& user) {
     d["stage"] = p.stage;
     d["done"] = p.done;
     d["total"] = p.total;
+    d["objective"] = p.objective;
     d["elapsed_s"] = p.elapsed_s;
     const py::object r = (*f)(d);
     return r.is_none() || r.cast<bool>();

@@ -31,4 +31,5 @@ PYBIND11_MODULE(_core, m) {
   spinfer::py_bind::bind_sampler(m);
   spinfer::py_bind::bind_partition(m);
   spinfer::py_bind::bind_fit(m);
+  spinfer::py_bind::bind_refine(m);
 }

@@ -70,6 +70,7 @@ DataNoise bootstrap_noise(const SpinMatrix& data, Convention convention,
   // Welford accumulators of every statistic over replicates.
   Eigen::VectorXd m1 = Eigen::VectorXd::Zero(N), m2 = Eigen::VectorXd::Zero(N);
   Eigen::MatrixXd c1 = Eigen::MatrixXd::Zero(N, N), c2 = Eigen::MatrixXd::Zero(N, N);
+  Eigen::MatrixXd r1 = Eigen::MatrixXd::Zero(N, N), r2 = Eigen::MatrixXd::Zero(N, N);
   Eigen::VectorXd k1 = Eigen::VectorXd::Zero(N + 1), k2 = Eigen::VectorXd::Zero(N + 1);
   const std::size_t Q = triples.size();
   std::vector<double> q1(Q, 0.0), q2(Q, 0.0);
@@ -88,6 +89,8 @@ DataNoise bootstrap_noise(const SpinMatrix& data, Convention convention,
     m2 += mo.mean.cwiseAbs2();
     c1 += mo.connected;
     c2 += mo.connected.cwiseAbs2();
+    r1 += mo.second;
+    r2 += mo.second.cwiseAbs2();
     k1 += pk;
     k2 += pk.cwiseAbs2();
     if (Q) {
@@ -113,6 +116,7 @@ DataNoise bootstrap_noise(const SpinMatrix& data, Convention convention,
   out.replicates = options.replicates;
   out.mean_se = m1.binaryExpr(m2, sd);
   out.connected_se = c1.binaryExpr(c2, sd);
+  out.second_se = r1.binaryExpr(r2, sd);
   out.count_se = k1.binaryExpr(k2, sd);
   out.triplet_se.resize(Q);
   for (std::size_t q = 0; q < Q; ++q) out.triplet_se[q] = sd(q1[q], q2[q]);

@@ -167,6 +167,12 @@ class Engine {
       for (auto& r : c.replicas) refresh(r);
   }
 
+  /// Sets the replica to the given active bits (N of them) and recomputes its fields and energy.
+  void load(Replica& r, const std::uint8_t* active) const {
+    for (std::int64_t k = 0; k < N_; ++k) r.v[std::size_t(k)] = active[k] ? hi_ : lo_;
+    refresh(r);
+  }
+
   double magnetisation(const Replica& r) const {
     double s = 0;
     for (double x : r.v) s += x;
@@ -369,6 +375,15 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
   std::vector<Chain> chains;
   chains.reserve(nC);
   for (std::int64_t c = 0; c < C; ++c) chains.push_back(engine.make_chain(o.seed, std::uint64_t(c)));
+  if (rq.persistent && !rq.persistent->empty()) {
+    const ChainStates& st = *rq.persistent;
+    if (st.chains != C || st.units != N || std::int64_t(st.active.size()) != C * N)
+      throw InputError("sampler: the chain states hold " + std::to_string(st.chains) + " chains of " +
+                       std::to_string(st.units) + " units, expected " + std::to_string(C) +
+                       " chains of " + std::to_string(N) + " units");
+    for (std::int64_t c = 0; c < C; ++c)
+      for (auto& rep : chains[std::size_t(c)].replicas) engine.load(rep, st.active.data() + c * N);
+  }
   Driver driver(engine, chains, o);
 
   EngineResult res;
@@ -519,6 +534,17 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
       d.swap_acceptance.push_back(t > 0 ? a / t : 0.0);
     }
   }
+  if (rq.persistent) {
+    ChainStates& st = *rq.persistent;
+    st.chains = C;
+    st.units = N;
+    st.active.assign(std::size_t(C * N), 0);
+    for (std::int64_t c = 0; c < C; ++c) {
+      const Chain& ch = chains[std::size_t(c)];
+      const Replica& r = ch.replicas[ch.at_slot[target]];
+      for (std::int64_t k = 0; k < N; ++k) st.active[std::size_t(c * N + k)] = r.v[std::size_t(k)] != lo;
+    }
+  }
   d.seconds = driver.elapsed();
   for (const auto& ch : chains) d.updates += double(ch.steps) * double(N) * double(K);
   return res;
@@ -535,6 +561,18 @@ SampleSet sample(const IsingModel& model, const SamplerOptions& options) {
   } else {
     rq.ladder = {options.temperature};
   }
+  return detail::run_engine(model, options, rq).set;
+}
+
+SampleSet continue_chains(const IsingModel& model, ChainStates& states, const SamplerOptions& options) {
+  detail::check_sampler_options(options);
+  if (options.temperature_ladder)
+    throw InputError("sampler: continue_chains does not run parallel tempering (temperature_ladder is set)");
+  if (options.burn_in < 0 || options.thin < 1)
+    throw InputError("sampler: continue_chains needs a fixed burn_in (>= 0) and thin (>= 1)");
+  detail::EngineRequest rq;
+  rq.ladder = {options.temperature};
+  rq.persistent = &states;
   return detail::run_engine(model, options, rq).set;
 }
 

@@ -13,6 +13,8 @@ struct EngineRequest {
   std::size_t target_slot = 0;      ///< ladder index whose states and diagnostics are reported
   bool keep_states = true;          ///< fill SampleSet::samples (else an empty matrix)
   bool all_slot_energies = false;   ///< fill slot_energies and tune on the slowest slot
+  ChainStates* persistent = nullptr;  ///< start from these states (if not empty); store the final
+                                      ///< states of the target slot (single-temperature runs)
 };
 
 struct EngineResult {

@@ -58,6 +58,7 @@ from .likelihood import (  # noqa: E402
 from .fitting import (  # noqa: E402
     fit_pseudo_likelihood, fit_screening, penalty_path, default_penalty_grid, pseudo_log_likelihood,
 )
+from .refinement import refine  # noqa: E402
 
 
 def build_info() -> str:
@@ -122,4 +123,5 @@ __all__ = [
     "penalty_path",
     "default_penalty_grid",
     "pseudo_log_likelihood",
+    "refine",
 ]

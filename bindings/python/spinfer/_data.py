@@ -59,8 +59,8 @@ def bootstrap_noise(X, convention: str = "binary", triples=(), replicates: int =
 
     Bins of a recording are correlated in time, so whole blocks of ``block_length`` consecutive
     samples are resampled (0 = automatic: ten times the integrated autocorrelation time of the number
-    of active units). Returns a dict with ``mean_se``, ``connected_se``, ``count_se``,
-    ``triplet_se``, ``block_length`` and ``replicates``.
+    of active units). Returns a dict with ``mean_se``, ``connected_se``, ``second_se`` (raw
+    second moments), ``count_se``, ``triplet_se``, ``block_length`` and ``replicates``.
     """
     t = [tuple(int(v) for v in tr) for tr in triples]
     return _core.bootstrap_noise(as_matrix(X, copy=copy), convention, t, replicates, block_length,

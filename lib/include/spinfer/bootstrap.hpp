@@ -41,6 +41,7 @@ std::vector<double> block_bootstrap_weights(std::int64_t rows, std::int64_t bloc
 struct DataNoise {
   Eigen::VectorXd mean_se;        ///< N
   Eigen::MatrixXd connected_se;   ///< N x N
+  Eigen::MatrixXd second_se;      ///< N x N, raw second moments <v_i v_j>
   Eigen::VectorXd count_se;       ///< N+1, for P(K)
   std::vector<double> triplet_se; ///< one per requested triple
   std::int64_t block_length = 0;

@@ -109,6 +109,25 @@ struct SampleSet {
 /// Interrupted when the progress callback returns false.
 SampleSet sample(const IsingModel& model, const SamplerOptions& options);
 
+/// Persistent chains: the configuration each chain ended in, kept between calls of
+/// continue_chains so successive runs (for example under slowly changing parameters, as in
+/// Boltzmann learning) need no new burn-in. Stored as active bits, so the states do not depend on
+/// the model's convention.
+struct ChainStates {
+  std::int64_t chains = 0;
+  std::int64_t units = 0;
+  std::vector<std::uint8_t> active;  ///< chains x units, chain by chain (1 = active)
+  bool empty() const { return active.empty(); }
+};
+
+/// Like sample() without parallel tempering, but the chains start from `states` (when it is not
+/// empty; else from options.start) and `states` receives the final configuration of every chain.
+/// options.burn_in must be >= 0 and options.thin >= 1 (no automatic tuning: the pilot would waste
+/// the point of continuing). Chain c draws from Rng(options.seed, c), so give every call its own
+/// seed; the result is identical for every thread count. Throws InputError when `states` does not
+/// have options.chains chains of model.size() units, or options.temperature_ladder is set.
+SampleSet continue_chains(const IsingModel& model, ChainStates& states, const SamplerOptions& options);
+
 /// A value and its standard error, elementwise.
 template <typename T>
 struct Estimate {
