@@ -11,8 +11,8 @@ numpy baselines, written to be as fast as numpy allows:
     R units and the field update is an (R x N) rank-1 product: Python overhead is amortised.
   * lattice: checkerboard updates, a whole sublattice at once with np.roll neighbour sums.
 spinfer modes: the default (scan="sequential") and, on the lattice, scan="coloured" (the fastest
-mode there: colours of the coupling graph in turn, exact cached thresholds). Every spinfer run keeps
-one sample every 10 sweeps (the numpy baselines keep none).
+mode there: colours of the coupling graph in turn, batched draws, exact tabulated thresholds).
+Every spinfer run keeps one sample every 10 sweeps (the numpy baselines keep none).
 Prints JSON lines: {"name", "updates_per_second", "ratio", "cpu_ratio"} where ratio = spinfer /
 best numpy for that model in wall-clock time. On a shared machine wall-clock rates swing with the
 load, so single-thread rows also give cpu_ratio: the same ratio from process CPU time (numpy
