@@ -10,8 +10,15 @@ numpy baselines, written to be as fast as numpy allows:
   * dense, many chains: the same sweep applied to R chains at once, so each Python step updates
     R units and the field update is an (R x N) rank-1 product: Python overhead is amortised.
   * lattice: checkerboard updates, a whole sublattice at once with np.roll neighbour sums.
-Prints JSON lines: {"name", "updates_per_second", "ratio"} where ratio = spinfer / best numpy
-for that model. Usage: python benchmarks/bench_sampler.py [--quick]
+spinfer modes: the default (scan="sequential") and, on the lattice, scan="coloured" (the fastest
+mode there: colours of the coupling graph in turn, batched draws, exact tabulated thresholds).
+Every spinfer run keeps one sample every 10 sweeps (the numpy baselines keep none).
+Prints JSON lines: {"name", "updates_per_second", "ratio", "cpu_ratio"} where ratio = spinfer /
+best numpy for that model in wall-clock time. On a shared machine wall-clock rates swing with the
+load, so single-thread rows also give cpu_ratio: the same ratio from process CPU time (numpy
+loop vs. the spinfer call minus the CPU time of a one-sweep call, i.e. without the set-up), which
+is insensitive to other processes.
+Usage: python benchmarks/bench_sampler.py [--quick]
 """
 import argparse
 import json
@@ -79,26 +86,36 @@ def numpy_checkerboard(L, K, sweeps, rng):
 
 
 def timed(f, *args):
-    t0 = time.perf_counter()
+    """(wall-clock rate, CPU-time rate) of a numpy baseline."""
+    t0, c0 = time.perf_counter(), time.process_time()
     updates = f(*args)
-    return updates / (time.perf_counter() - t0)
+    return updates / (time.perf_counter() - t0), updates / (time.process_time() - c0)
 
 
-def spinfer_rate(h, J, sweeps, chains, threads):
+def spinfer_rate(h, J, sweeps, chains, threads, scan="sequential"):
     """Updates per second of the sampling loop (diagnostics["seconds"]); the one-off set-up (array
     conversion, model validation, coupling layout: O(N^2) for the dense (N, N) input) is reported
-    separately, as the numpy baselines' set-up is not timed either."""
-    t0 = time.perf_counter()
-    _, d = spinfer.sample(h, J, "spin", chains * sweeps, chains=chains, threads=threads,
-                          burn_in=0, thin=1, seed=1)
-    wall = time.perf_counter() - t0
+    separately, as the numpy baselines' set-up is not timed either. d["cpu_rate"]: updates per
+    CPU second, less the CPU time of a one-sweep call (set-up) on the same input."""
+    c0 = time.process_time()
+    spinfer.sample(h, J, "spin", chains, chains=chains, threads=threads, burn_in=0, thin=1, seed=1,
+                   scan=scan)
+    setup_cpu = time.process_time() - c0
+    t0, c0 = time.perf_counter(), time.process_time()
+    _, d = spinfer.sample(h, J, "spin", chains * sweeps // 10, chains=chains, threads=threads,
+                          burn_in=0, thin=10, seed=1, scan=scan)
+    wall, cpu = time.perf_counter() - t0, time.process_time() - c0
     d["setup_seconds"] = round(wall - d["seconds"], 3)
+    d["cpu_rate"] = d["updates"] / (cpu - setup_cpu)
     return d["updates"] / d["seconds"], d
 
 
-def emit(name, rate, best_numpy, **extra):
-    print(json.dumps(dict(name=name, updates_per_second=round(rate), ratio=round(rate / best_numpy, 2), **extra)),
-          flush=True)
+def emit(name, rate, best_numpy, cpu=None, **extra):
+    """rate/best_numpy: wall-clock; cpu: (spinfer, numpy) CPU-time rates for the cpu_ratio."""
+    row = dict(name=name, updates_per_second=round(rate), ratio=round(rate / best_numpy, 2))
+    if cpu is not None:
+        row["cpu_ratio"] = round(cpu[0] / cpu[1], 2)
+    print(json.dumps(dict(row, **extra)), flush=True)
 
 
 def main():
@@ -109,28 +126,31 @@ def main():
 
     # --- dense SK, N = 200 ---
     h, J = sk_model(200)
-    np1 = timed(numpy_dense_one_chain, J, 5 if q else 20, rng)
-    npR = timed(numpy_dense_many_chains, J, 5 if q else 20, 64, rng)
-    best = max(np1, npR)
+    np1, np1c = timed(numpy_dense_one_chain, J, 5 if q else 20, rng)
+    npR, npRc = timed(numpy_dense_many_chains, J, 5 if q else 20, 64, rng)
+    best, bestc = max(np1, npR), max(np1c, npRc)
     emit("dense N=200 numpy one chain", np1, best)
     emit("dense N=200 numpy 64 chains vectorised", npR, best)
     sweeps = 20000 if q else 100000
-    r1, d = spinfer_rate(h, J, sweeps, 1, 1)
-    emit("dense N=200 spinfer 1 thread", r1, best, storage=d["storage"], setup_seconds=d["setup_seconds"])
+    r1, d1 = spinfer_rate(h, J, sweeps, 1, 1)
+    emit("dense N=200 spinfer 1 thread (default scan, also the fastest here)", r1, best,
+         cpu=(d1["cpu_rate"], bestc), storage=d1["storage"], setup_seconds=d1["setup_seconds"])
     r2, d = spinfer_rate(h, J, sweeps // 2, 4, 2)
     emit("dense N=200 spinfer 2 threads (4 chains)", r2, best, storage=d["storage"])
-    emit("dense N=200 spinfer 1 thread vs numpy one chain", r1, np1)
+    emit("dense N=200 spinfer 1 thread vs numpy one chain", r1, np1, cpu=(d1["cpu_rate"], np1c))
 
     # --- 64 x 64 periodic lattice ---
     L, K = 64, 0.4
     hl, Jl = lattice_model(L, K)
-    npc = timed(numpy_checkerboard, L, K, 100 if q else 500, rng)
+    npc, npcc = timed(numpy_checkerboard, L, K, 100 if q else 500, rng)
     emit("lattice 64x64 numpy checkerboard", npc, npc)
     sweeps = 2000 if q else 20000
-    r1, d = spinfer_rate(hl, Jl, sweeps, 1, 1)
-    emit("lattice 64x64 spinfer 1 thread", r1, npc, storage=d["storage"], setup_seconds=d["setup_seconds"])
-    r2, d = spinfer_rate(hl, Jl, sweeps // 2, 4, 2)
-    emit("lattice 64x64 spinfer 2 threads (4 chains)", r2, npc, storage=d["storage"])
+    for scan, label in [("sequential", "default scan=sequential"), ("coloured", "fastest: scan=coloured")]:
+        r1, d = spinfer_rate(hl, Jl, sweeps, 1, 1, scan)
+        emit(f"lattice 64x64 spinfer 1 thread ({label})", r1, npc, cpu=(d["cpu_rate"], npcc),
+             storage=d["storage"], setup_seconds=d["setup_seconds"])
+        r2, d = spinfer_rate(hl, Jl, sweeps // 2, 4, 2, scan)
+        emit(f"lattice 64x64 spinfer 2 threads, 4 chains ({label})", r2, npc, storage=d["storage"])
 
 
 if __name__ == "__main__":

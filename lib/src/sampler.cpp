@@ -1,6 +1,8 @@
 // Single-unit Gibbs / Metropolis chains with incrementally maintained local fields, optional
 // parallel tempering, automatic burn-in and thinning, and convergence diagnostics.
 #include <algorithm>
+#include <array>
+#include <cstring>
 #include <chrono>
 #include <cmath>
 #include <functional>
@@ -88,6 +90,110 @@ inline bool metropolis(double y, double u) {
   return u < std::exp(-y);
 }
 
+// ---- exact integer thresholds for the coloured scan ------------------------------------------------
+// A uniform u = m 2^-53 (m the top 53 bits of a draw) passes a test "u < p" exactly when m < T for
+// one integer T, as the test (rounding included) is monotone in m. With one coupling value and one
+// field value the local field takes only 2 dmax + 1 values, so T is tabulated once per value.
+
+constexpr std::uint64_t kTwo53 = std::uint64_t(1) << 53;
+
+/// Smallest m in [0, 2^53] at which `pass(m)` stops holding; `pass` is true then false in m.
+template <typename Pass>
+std::uint64_t boundary(double guess, Pass pass) {
+  std::uint64_t m = guess <= 0 ? 0 : guess >= double(kTwo53) ? kTwo53 : std::uint64_t(guess);
+  while (m > 0 && !pass(m - 1)) --m;
+  while (m < kTwo53 && pass(m)) ++m;
+  return m;
+}
+
+/// Heat bath: active iff u (1 + exp(-x)) < 1, the same test as heat_bath() without the bounds.
+std::uint64_t heat_bath_threshold(double x) {
+  const double e = std::exp(-x);
+  return boundary(0x1.0p53 / (1.0 + e),
+                  [&](std::uint64_t m) { return double(m) * 0x1.0p-53 * (1.0 + e) < 1.0; });
+}
+
+/// Metropolis: accept iff y <= 0 or u < exp(-y).
+std::uint64_t metropolis_threshold(double y) {
+  if (y <= 0) return kTwo53;
+  const double p = std::exp(-y);
+  return boundary(p * 0x1.0p53, [&](std::uint64_t m) { return double(m) * 0x1.0p-53 < p; });
+}
+
+/// c ? a : b through bit masks: compilers turn a plain select into a branch, which is mispredicted
+/// about as often as the update changes a unit.
+inline double pick(bool c, double a, double b) {
+  std::uint64_t x, y;
+  std::memcpy(&x, &a, sizeof x);
+  std::memcpy(&y, &b, sizeof y);
+  const std::uint64_t mask = std::uint64_t(0) - std::uint64_t(c);
+  const std::uint64_t z = (x & mask) | (y & ~mask);
+  double out;
+  std::memcpy(&out, &z, sizeof out);
+  return out;
+}
+
+/// Four xoshiro256** generators (the algorithm of rng.hpp) stepped together, for the coloured
+/// scan's batches of random bits; written with vector extensions so the AVX2 clone steps all four
+/// in one register. Lane l of step t gives out[4t + l]. Seeded from the chain's own stream.
+struct FourLanes {
+  std::uint64_t s[4][4];  // s[word][lane]
+};
+
+#if defined(__x86_64__) && defined(__GNUC__)
+__attribute__((target_clones("avx2", "default")))
+#endif
+void draw_four_lanes(FourLanes& g, std::uint64_t* out, std::int64_t n) {
+  typedef std::uint64_t v4 __attribute__((vector_size(32)));
+  v4 s0, s1, s2, s3;
+  std::memcpy(&s0, g.s[0], 32);
+  std::memcpy(&s1, g.s[1], 32);
+  std::memcpy(&s2, g.s[2], 32);
+  std::memcpy(&s3, g.s[3], 32);
+  for (std::int64_t i = 0; i < n; i += 4) {
+    const v4 x = s1 * 5;
+    const v4 result = ((x << 7) | (x >> 57)) * 9;
+    const v4 t = s1 << 17;
+    s2 ^= s0;
+    s3 ^= s1;
+    s1 ^= s2;
+    s0 ^= s3;
+    s2 ^= t;
+    s3 = (s3 << 45) | (s3 >> 19);
+    std::memcpy(out + i, &result, 32);
+  }
+  std::memcpy(g.s[0], &s0, 32);
+  std::memcpy(g.s[1], &s1, 32);
+  std::memcpy(g.s[2], &s2, 32);
+  std::memcpy(g.s[3], &s3, 32);
+}
+
+/// Greedy colouring in unit order: each unit takes the smallest colour none of its earlier
+/// neighbours has. Returns the units grouped by colour (ascending within a colour) and the
+/// start of each colour in that list.
+void colour_units(std::int64_t N, const std::function<void(std::int64_t, std::vector<std::int64_t>&)>& neighbours,
+                  std::vector<std::int32_t>* order, std::vector<std::int64_t>* starts) {
+  std::vector<std::int32_t> colour(std::size_t(N), -1);
+  std::vector<std::int64_t> nb, last_seen;
+  std::int32_t colours = 0;
+  for (std::int64_t k = 0; k < N; ++k) {
+    neighbours(k, nb);
+    last_seen.assign(std::size_t(colours) + 1, -1);
+    for (auto j : nb)
+      if (colour[std::size_t(j)] >= 0) last_seen[std::size_t(colour[std::size_t(j)])] = k;
+    std::int32_t c = 0;
+    while (last_seen[std::size_t(c)] == k) ++c;
+    colour[std::size_t(k)] = c;
+    colours = std::max(colours, c + 1);
+  }
+  starts->assign(std::size_t(colours) + 1, 0);
+  for (auto c : colour) ++(*starts)[std::size_t(c) + 1];
+  for (std::size_t c = 0; c < std::size_t(colours); ++c) (*starts)[c + 1] += (*starts)[c];
+  order->assign(std::size_t(N), 0);
+  std::vector<std::int64_t> fill(starts->begin(), starts->end() - 1);
+  for (std::int64_t k = 0; k < N; ++k) (*order)[std::size_t(fill[std::size_t(colour[std::size_t(k)])]++)] = std::int32_t(k);
+}
+
 // ---- replicas and chains -----------------------------------------------------------------------
 
 struct Replica {
@@ -102,6 +208,11 @@ struct Chain {
   std::vector<std::size_t> at_slot;  // ladder slot -> replica
   std::vector<std::int64_t> slot_flips, slot_updates, swap_tries, swap_accepts;
   std::int64_t steps = 0;
+  // Coloured scan, uniform couplings: one colour's random bits, their generators, and per ladder
+  // slot the integer thresholds by neighbour sum (see Engine::sweep_uniform).
+  std::vector<std::uint64_t> draws;
+  FourLanes lanes{};
+  std::vector<std::uint64_t> level_thresholds;
 };
 
 class Engine {
@@ -113,11 +224,58 @@ class Engine {
         hi_(1.0),
         gibbs_(o.method == "gibbs"),
         random_scan_(o.scan == "random"),
+        coloured_(o.scan == "coloured"),
         start_(o.start),
         couplings_(make_couplings(model, o.storage, o.sparse_density_threshold)),
         ladder_(std::move(ladder)) {
     for (double T : ladder_) betas_.push_back(1.0 / T);
+    if (coloured_) {
+      const Couplings& c = couplings_;
+      colour_units(N_, [&](std::int64_t k, std::vector<std::int64_t>& nb) {
+        nb.clear();
+        if (c.sparse) {
+          for (auto p = c.offsets[std::size_t(k)]; p < c.offsets[std::size_t(k + 1)]; ++p) nb.push_back(c.index[std::size_t(p)]);
+        } else {
+          for (std::int64_t j = 0; j < N_; ++j)
+            if (j != k && c.dense(j, k) != 0.0) nb.push_back(j);
+        }
+      }, &order_, &colour_start_);
+      // One coupling value K and one field value h0: H_k = h0 + K S_k with S_k the sum of the
+      // neighbours' values, an integer in [-dmax, dmax], so the acceptance thresholds can be
+      // tabulated by S_k.
+      uniform_ = c.sparse && !c.value.empty() && N_ > 0 &&
+                 std::all_of(c.value.begin(), c.value.end(), [&](double x) { return x == c.value[0]; }) &&
+                 (h_.array() == h_(0)).all();
+      if (uniform_) {
+        K_ = c.value[0];
+        h0_ = h_(0);
+        for (std::int64_t k = 0; k < N_; ++k)
+          dmax_ = std::max(dmax_, c.offsets[std::size_t(k + 1)] - c.offsets[std::size_t(k)]);
+      }
+    }
   }
+
+  /// Per ladder slot, the thresholds of the uniform coloured kernel: [slot][old value][S + dmax]
+  /// (Metropolis) or [slot][S + dmax] (heat bath); a draw m (53 bits) accepts iff m < threshold.
+  std::vector<std::uint64_t> level_thresholds() const {
+    std::vector<std::uint64_t> t;
+    if (!uniform_) return t;
+    const double span = hi_ - lo_, both = hi_ + lo_;
+    for (double beta : betas_)
+      for (int old = 0; old < (gibbs_ ? 1 : 2); ++old)
+        for (std::int64_t S = -dmax_; S <= dmax_; ++S) {
+          const double Hk = h0_ + K_ * double(S);
+          if (gibbs_) {
+            t.push_back(heat_bath_threshold(beta * span * Hk));
+          } else {
+            const double was = old ? hi_ : lo_, flipped = both - was;
+            t.push_back(metropolis_threshold(beta * (was - flipped) * Hk));
+          }
+        }
+    return t;
+  }
+
+  std::int64_t colours() const { return coloured_ ? std::int64_t(colour_start_.size()) - 1 : 0; }
 
   std::int64_t units() const { return N_; }
   std::size_t slots() const { return ladder_.size(); }
@@ -137,6 +295,12 @@ class Engine {
       refresh(rep);
       c.at_slot.push_back(r);
     }
+    if (uniform_) {
+      for (auto& word : c.lanes.s)
+        for (auto& lane : word) lane = c.rng.next();
+      c.level_thresholds = level_thresholds();
+      c.draws.assign(std::size_t(N_ + 4), 0);
+    }
     c.slot_flips.assign(K, 0);
     c.slot_updates.assign(K, 0);
     c.swap_tries.assign(K > 0 ? K - 1 : 0, 0);
@@ -149,7 +313,7 @@ class Engine {
     const std::size_t K = slots();
     for (std::size_t s = 0; s < K; ++s) {
       Replica& r = c.replicas[c.at_slot[s]];
-      c.slot_flips[s] += sweep(r, betas_[s], c.rng);
+      c.slot_flips[s] += sweep(r, betas_[s], s, c);
       c.slot_updates[s] += N_;
     }
     for (std::size_t s = 0; s + 1 < K; ++s) {
@@ -199,8 +363,15 @@ class Engine {
     r.E = e;
   }
 
-  std::int64_t sweep(Replica& r, double beta, Rng& rng) const {
+  std::int64_t sweep(Replica& r, double beta, std::size_t slot, Chain& c) const {
+    Rng& rng = c.rng;
     // Dispatch once per sweep so the inner loop is specialised.
+    if (coloured_) {
+      if (uniform_) return gibbs_ ? sweep_uniform<true>(r, slot, c) : sweep_uniform<false>(r, slot, c);
+      if (couplings_.sparse)
+        return gibbs_ ? sweep_t<true, true, false, true>(r, beta, rng) : sweep_t<true, false, false, true>(r, beta, rng);
+      return gibbs_ ? sweep_t<false, true, false, true>(r, beta, rng) : sweep_t<false, false, false, true>(r, beta, rng);
+    }
     if (couplings_.sparse) {
       if (gibbs_) return random_scan_ ? sweep_t<true, true, true>(r, beta, rng) : sweep_t<true, true, false>(r, beta, rng);
       return random_scan_ ? sweep_t<true, false, true>(r, beta, rng) : sweep_t<true, false, false>(r, beta, rng);
@@ -209,7 +380,49 @@ class Engine {
     return random_scan_ ? sweep_t<false, false, true>(r, beta, rng) : sweep_t<false, false, false>(r, beta, rng);
   }
 
-  template <bool kSparse, bool kGibbs, bool kRandom>
+  /// Coloured scan, uniform couplings (one value K, one field h0). Units of one colour are not
+  /// coupled, so each field is fixed while its colour is updated: the colour's random bits come
+  /// in one batch from four generators stepped together, each field is h0 + K S_k with S_k the
+  /// sum of the neighbours' values (exact: a small integer), and the test compares the draw's 53
+  /// bits with the tabulated integer threshold for S_k. That is the double test u < p of
+  /// heat_bath_threshold / metropolis_threshold exactly, with no exp and no unpredictable branch.
+  template <bool kGibbs>
+  std::int64_t sweep_uniform(Replica& r, std::size_t slot, Chain& c) const {
+    double* v = r.v.data();
+    const std::int64_t* off = couplings_.offsets.data();
+    const std::int32_t* idx = couplings_.index.data();
+    const std::int64_t levels = 2 * dmax_ + 1;
+    const std::uint64_t* table = c.level_thresholds.data() + std::size_t(slot) * std::size_t(levels) * (kGibbs ? 1 : 2);
+    std::uint64_t* m = c.draws.data();
+    const double both = hi_ + lo_;
+    std::int64_t flips = 0;
+    double E = r.E;
+    for (std::size_t col = 0; col + 1 < colour_start_.size(); ++col) {
+      const std::int64_t b = colour_start_[col], e = colour_start_[col + 1];
+      draw_four_lanes(c.lanes, m, e - b);
+      for (std::int64_t i = b; i < e; ++i) {
+        const std::int32_t k = order_[std::size_t(i)];
+        double S = 0;
+        for (auto p = off[k]; p < off[k + 1]; ++p) S += v[idx[p]];
+        const auto level = std::int64_t(S) + dmax_;
+        const double old = v[k];
+        double next;
+        if constexpr (kGibbs) {
+          next = pick((m[i - b] >> 11) < table[level], hi_, lo_);
+        } else {
+          const std::int64_t row = levels * std::int64_t(old == hi_);
+          next = pick((m[i - b] >> 11) < table[row + level], both - old, old);
+        }
+        v[k] = next;
+        E -= (next - old) * (h0_ + K_ * S);
+        flips += next != old;
+      }
+    }
+    r.E = E;
+    return flips;
+  }
+
+  template <bool kSparse, bool kGibbs, bool kRandom, bool kOrdered = false>
   std::int64_t sweep_t(Replica& r, double beta, Rng& rng) const {
     double* v = r.v.data();
     double* H = r.H.data();
@@ -217,7 +430,8 @@ class Engine {
     std::int64_t flips = 0;
     double E = r.E;
     for (std::int64_t step = 0; step < N_; ++step) {
-      const std::int64_t k = kRandom ? std::int64_t(rng.below(std::uint64_t(N_))) : step;
+      const std::int64_t k = kRandom ? std::int64_t(rng.below(std::uint64_t(N_)))
+                             : kOrdered ? std::int64_t(order_[std::size_t(step)]) : step;
       const double Hk = H[k];
       double delta;  // new value - old value, 0 when unchanged
       if constexpr (kGibbs) {
@@ -249,10 +463,14 @@ class Engine {
   std::int64_t N_;
   Eigen::VectorXd h_;
   double lo_, hi_;
-  bool gibbs_, random_scan_;
+  bool gibbs_, random_scan_, coloured_, uniform_ = false;
+  double K_ = 0, h0_ = 0;         // uniform couplings: the one coupling and field value
+  std::int64_t dmax_ = 0;         // uniform couplings: the largest degree
   std::string start_;
   Couplings couplings_;
   std::vector<double> ladder_, betas_;
+  std::vector<std::int32_t> order_;         // coloured scan: units grouped by colour
+  std::vector<std::int64_t> colour_start_;  // start of each colour in order_, then N
 };
 
 double seconds_since(std::chrono::steady_clock::time_point t0) {
@@ -323,8 +541,9 @@ double finite_or(double x, double fallback) { return std::isfinite(x) ? x : fall
 void check_sampler_options(const SamplerOptions& o) {
   if (o.method != "gibbs" && o.method != "metropolis")
     throw InputError("sampler: method must be \"gibbs\" or \"metropolis\", got \"" + o.method + "\"");
-  if (o.scan != "sequential" && o.scan != "random")
-    throw InputError("sampler: scan must be \"sequential\" or \"random\", got \"" + o.scan + "\"");
+  if (o.scan != "sequential" && o.scan != "random" && o.scan != "coloured")
+    throw InputError("sampler: scan must be \"sequential\", \"random\" or \"coloured\", got \"" +
+                     o.scan + "\"");
   if (o.storage != "auto" && o.storage != "dense" && o.storage != "sparse")
     throw InputError("sampler: storage must be \"auto\", \"dense\" or \"sparse\", got \"" +
                      o.storage + "\"");

@@ -278,18 +278,27 @@ TEST_CASE("sampler: 4x4 torus at K_c matches the exact values") {
   const Exact x = enumerate(m, 1.0);  // and our own enumeration agrees with the sheet
   CHECK(x.E / (16 * Kc) == doctest::Approx(-1.5656237876).epsilon(1e-9));
   CHECK(x.C == doctest::Approx(0.7832668259).epsilon(1e-9));
-  SamplerOptions o;
-  o.samples = 40000;
-  o.seed = 3;
-  o.threads = 2;
-  const ModelStatistics st = model_statistics(m, o);
-  near(st.energy.value / (16 * Kc), st.energy.error / (16 * Kc), -1.5656237876, 0.02, "u");
-  near(st.specific_heat.value, st.specific_heat.error, 0.7832668259, 0.05, "c");
-  const SampleSet s = sample(m, o);
-  const auto am = batch_means(per_chain(s, o.chains, [&](std::int64_t t) { return std::abs(magnetisation(s, t)); }), 8);
-  const auto m2 = batch_means(per_chain(s, o.chains, [&](std::int64_t t) { return std::pow(magnetisation(s, t), 2); }), 8);
-  near(am.mean, am.error, 0.8438604448, 0.02, "<|m|>");
-  near(m2.mean, m2.error, 0.7613589086, 0.02, "<m^2>");
+  for (const char* scan : {"sequential", "coloured"})
+    for (const char* method : {"gibbs", "metropolis"}) {
+      if (std::string(scan) == "sequential" && std::string(method) == "metropolis") continue;
+      INFO(scan << " " << method);
+      SamplerOptions o;
+      o.samples = 40000;
+      o.seed = 3;
+      o.threads = 2;
+      o.scan = scan;
+      o.method = method;
+      o.storage = "sparse";  // (a 4x4 torus is denser than the automatic threshold)
+      const ModelStatistics st = model_statistics(m, o);
+      CHECK(st.diagnostics.storage == "sparse");
+      near(st.energy.value / (16 * Kc), st.energy.error / (16 * Kc), -1.5656237876, 0.02, "u");
+      near(st.specific_heat.value, st.specific_heat.error, 0.7832668259, 0.05, "c");
+      const SampleSet s = sample(m, o);
+      const auto am = batch_means(per_chain(s, o.chains, [&](std::int64_t t) { return std::abs(magnetisation(s, t)); }), 8);
+      const auto m2 = batch_means(per_chain(s, o.chains, [&](std::int64_t t) { return std::pow(magnetisation(s, t), 2); }), 8);
+      near(am.mean, am.error, 0.8438604448, 0.02, "<|m|>");
+      near(m2.mean, m2.error, 0.7613589086, 0.02, "<m^2>");
+    }
 }
 
 TEST_CASE("sampler: 32x32 torus against Onsager") {
@@ -297,7 +306,10 @@ TEST_CASE("sampler: 32x32 torus against Onsager") {
   // in L / xi away from K_c (xi of order one lattice spacing here); we allow 0.002 for them on top
   // of 5 standard errors.
   const double allowance = 0.002;
+  for (const char* scan : {"sequential", "coloured"}) {
+  INFO(scan);
   SamplerOptions o;
+  o.scan = scan;
   o.samples = 2000;
   o.chains = 4;
   o.threads = 2;
@@ -326,6 +338,84 @@ TEST_CASE("sampler: 32x32 torus against Onsager") {
     CHECK(std::abs(u.mean - -0.428228833240348) <= 5 * u.error + allowance);
     CHECK(u.error < 0.002);
   }
+  }
+}
+
+TEST_CASE("sampler: coloured scan matches exact enumeration on graphs with several colours") {
+  // An odd ring with random fields and couplings of both signs needs 3 colours (greedy: 0,1,0,..,2);
+  // a random dense model gets one colour per unit, and dense storage takes the ordered kernel.
+  Rng rng(31, 0);
+  IsingModel ring = chain_model(9, 0.0, true);  // couplings set below
+  for (int i = 0; i < 9; ++i) {
+    ring.fields(i) = 2 * rng.uniform() - 1;
+    const int j = (i + 1) % 9;
+    ring.couplings(i, j) = ring.couplings(j, i) = 1.6 * rng.uniform() - 0.8;
+  }
+  IsingModel dense = random_model(8, Convention::binary, 7, 1.0, 1.0);
+  for (const IsingModel* m : {&ring, &dense})
+    for (const char* storage : {"sparse", "dense"})
+      for (const char* method : {"gibbs", "metropolis"}) {
+        INFO(storage << " " << method << " units " << m->size());
+        SamplerOptions o;
+        o.samples = 40000;
+        o.seed = 13;
+        o.threads = 2;
+        o.scan = "coloured";
+        o.storage = storage;
+        o.method = method;
+        const ModelStatistics st = model_statistics(*m, o);
+        CHECK(st.diagnostics.scan == "coloured");
+        CHECK(st.diagnostics.storage == storage);
+        check_against_exact(st, enumerate(*m, 1.0), "coloured");
+      }
+}
+
+TEST_CASE("sampler: coloured scan, uniform binary lattice with a field: enumeration and reproducibility") {
+  // One coupling value and one field value: the batched kernel with tabulated thresholds, here
+  // with neighbour sums S in [0, 4] (binary) and a field.
+  IsingModel m = torus(4, 0.5);
+  m.convention = Convention::binary;
+  m.fields = Eigen::VectorXd::Constant(16, -1.0);
+  const Exact x = enumerate(m, 1.0);
+  for (const char* method : {"gibbs", "metropolis"}) {
+    INFO(method);
+    SamplerOptions o;
+    o.samples = 40000;
+    o.seed = 15;
+    o.threads = 2;
+    o.scan = "coloured";
+    o.method = method;
+    o.storage = "sparse";
+    check_against_exact(model_statistics(m, o), x, "coloured binary lattice");
+    // Same seed, any thread count, with and without tempering: identical samples.
+    o.samples = 600;
+    for (bool tempering : {false, true}) {
+      if (tempering) o.temperature_ladder = std::vector<double>{1.0, 1.5, 2.5};
+      o.threads = 1;
+      const SampleSet a = sample(m, o);
+      o.threads = 2;
+      const SampleSet b = sample(m, o);
+      CHECK(std::equal(a.samples.data(), a.samples.data() + a.samples.rows() * 16, b.samples.data()));
+      CHECK(a.energies == b.energies);
+      for (std::int64_t t = 0; t < 20; ++t)
+        CHECK(a.energies[std::size_t(t)] == doctest::Approx(energy(m, a.samples.row(t))).epsilon(1e-12));
+    }
+  }
+}
+
+TEST_CASE("sampler: coloured scan at another temperature and with parallel tempering") {
+  const IsingModel m = torus(4, 1.0);
+  SamplerOptions o;
+  o.samples = 40000;
+  o.seed = 14;
+  o.scan = "coloured";
+  o.storage = "sparse";
+  o.temperature = 2.5;
+  check_against_exact(model_statistics(m, o), enumerate(m, 2.5), "coloured T = 2.5");
+  o.temperature = 1.0;
+  o.temperature_ladder = std::vector<double>{1.0, 1.6, 2.5, 4.0};
+  o.thin = 2;
+  check_against_exact(model_statistics(m, o), enumerate(m, 1.0), "coloured tempering");
 }
 
 TEST_CASE("sampler: Curie-Weiss <m^2> matches the finite-N sum") {
@@ -357,9 +447,13 @@ TEST_CASE("sampler: Curie-Weiss <m^2> matches the finite-N sum") {
 
 TEST_CASE("sampler: the same seed gives the same samples for any thread count") {
   const IsingModel m = random_model(30, Convention::binary, 4, 1.0, 0.3);
+  for (const char* scan : {"sequential", "coloured"}) {
+  INFO(scan);
   SamplerOptions o;
   o.samples = 1000;
   o.seed = 99;
+  o.scan = scan;
+  o.storage = std::string(scan) == "coloured" ? "sparse" : "auto";
   for (bool tempering : {false, true}) {
     if (tempering) o.temperature_ladder = std::vector<double>{1.0, 1.5, 2.0};
     o.threads = 1;
@@ -374,6 +468,7 @@ TEST_CASE("sampler: the same seed gives the same samples for any thread count") 
     const SampleSet c = sample(m, o);
     CHECK(!std::equal(a.samples.data(), a.samples.data() + a.samples.rows() * 30, c.samples.data()));
     o.seed = 99;
+  }
   }
 }
 

@@ -6,7 +6,10 @@ symmetric (N, N) matrix with a zero diagonal; each pair is counted once in E.
 
 Common keyword arguments (all functions):
   method       "gibbs" (heat bath) or "metropolis"
-  scan         "sequential" or "random" order of single-unit updates within a sweep
+  scan         order of single-unit updates within a sweep: "sequential", "random", or
+               "coloured" (the colours of a greedy colouring of the coupling graph in turn;
+               a batched, exp-free kernel when all couplings and all fields are equal, e.g.
+               lattices: several times faster there)
   chains       independent chains, run in parallel over ``threads``
   seed         the same seed gives the same samples for every thread count
   temperature  target T (default 1: the model itself)
