@@ -12,8 +12,10 @@ namespace spinfer::cli {
 void add_stats_command(CLI::App& app, Context& ctx);
 void add_bin_command(CLI::App& app, Context& ctx);
 void add_convert_command(CLI::App& app, Context& ctx);
+void add_fit_command(CLI::App& app, Context& ctx);
 void add_sample_command(CLI::App& app, Context& ctx);
 void add_check_command(CLI::App& app, Context& ctx);
 void add_scan_command(CLI::App& app, Context& ctx);
+void add_report_command(CLI::App& app, Context& ctx);
 
 }  // namespace spinfer::cli

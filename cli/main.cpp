@@ -18,9 +18,11 @@ int main(int argc, char** argv) {
   add_stats_command(app, ctx);
   add_bin_command(app, ctx);
   add_convert_command(app, ctx);
+  add_fit_command(app, ctx);
   add_sample_command(app, ctx);
   add_check_command(app, ctx);
   add_scan_command(app, ctx);
+  add_report_command(app, ctx);
 
   try {
     app.parse(argc, argv);

@@ -1,0 +1,121 @@
+// `spinfer fit`: fit a pairwise model with any estimator (fit.hpp) and write the model file.
+#include <memory>
+
+#include <nlohmann/json.hpp>
+
+#include "commands.hpp"
+#include "spinfer/errors.hpp"
+#include "spinfer/fit.hpp"
+#include "spinfer/io.hpp"
+#include "spinfer/model_io.hpp"
+
+namespace spinfer::cli {
+namespace {
+
+struct FitArgs {
+  std::string data, method = "pseudo-likelihood", convention, member, output_convention, l1, l2;
+  std::string variant;
+  double shrinkage = 0;
+  bool fallback = false, drop_constant = false;
+  int max_iterations = 1000;
+  double tolerance = 1e-5;
+};
+
+std::optional<double> penalty_arg(const std::string& text, const char* name) {
+  if (text.empty()) return std::nullopt;
+  if (text == "auto") return kAutomaticPenalty;
+  try {
+    std::size_t used = 0;
+    const double v = std::stod(text, &used);
+    if (used == text.size() && v >= 0) return v;
+  } catch (const std::exception&) {
+  }
+  throw InputError(std::string(name) + " '" + text + "': expected a number >= 0 or 'auto'");
+}
+
+int run_fit(const Context& ctx, const FitArgs& a) {
+  if (ctx.common.out.empty()) throw InputError("--out is required");
+  check_output_path(ctx.common.out, ctx.common.force);
+  ReadOptions ro;
+  if (!a.convention.empty()) ro.convention = parse_convention(a.convention);
+  ro.member = a.member;
+  SpinMatrix data = read_matrix(a.data, ro);
+  if (a.drop_constant) {
+    ConstantUnits dropped;
+    data = drop_constant_units(data, &dropped);
+    if (!dropped.empty()) log_info(ctx, "dropped", "dropped " + dropped.describe(data));
+  }
+  FitOptions o;
+  o.method = a.method;
+  o.symmetric = a.variant == "symmetric";
+  o.logarithmic = a.variant == "logarithmic";
+  if ((o.symmetric && a.method != "pseudo-likelihood" && a.method != "screening") ||
+      (o.logarithmic && a.method != "screening"))
+    throw InputError("--variant " + a.variant + " does not apply to method " + a.method);
+  o.l1 = penalty_arg(a.l1, "--l1");
+  o.l2 = penalty_arg(a.l2, "--l2");
+  o.shrinkage = a.shrinkage;
+  o.mean_field_fallback = a.fallback;
+  o.max_iterations = a.max_iterations;
+  o.tolerance = a.tolerance;
+  o.threads = ctx.common.threads;
+  if (!a.output_convention.empty()) o.convention = parse_convention(a.output_convention);
+  o.progress = progress_logger(ctx, a.method);
+  log_info(ctx, "fit", "fitting " + std::to_string(data.rows()) + " samples x " +
+                           std::to_string(data.cols()) + " units with " + a.method);
+  IsingModel model = fit_model(data, o);
+  model.provenance.seed = ctx.common.seed;
+  model.provenance.extra["command"] = provenance_json(ctx, {a.data});
+  save_model(ctx.common.out, model);
+  const Provenance& p = model.provenance;
+  log_info(ctx, "written", "model -> " + ctx.common.out + " (" + to_string(model.convention) +
+                               " convention; " + std::to_string(p.iterations) + " iterations, " +
+                               (p.converged ? "converged" : "NOT converged") + ")");
+  if (!p.converged) log_info(ctx, "warning", "warning: the fit did not converge; raise --max-iterations");
+  print_summary(nlohmann::json{{"command", "fit"}, {"data", a.data}, {"output", ctx.common.out},
+                               {"method", a.method}, {"samples", data.rows()}, {"units", data.cols()},
+                               {"l1", p.l1}, {"l2", p.l2}, {"iterations", p.iterations},
+                               {"converged", p.converged}, {"objective", p.objective},
+                               {"convention", to_string(model.convention)}}.dump());
+  return kOk;
+}
+
+}  // namespace
+
+void add_fit_command(CLI::App& app, Context& ctx) {
+  auto args = std::make_shared<FitArgs>();
+  CLI::App* sub = app.add_subcommand("fit", "Fit fields and couplings to a binary recording");
+  sub->add_option("DATA", args->data, "Data matrix (.npy, .npz, .csv, .tsv, .txt)")->required();
+  sub->add_option("--method,-m", args->method,
+                  "pseudo-likelihood, screening, mean-field, tap, independent-pair, sessak-monasson, bethe")
+      ->check(CLI::IsMember({"pseudo-likelihood", "screening", "mean-field", "tap", "independent-pair",
+                             "sessak-monasson", "bethe"}));
+  sub->add_option("--variant", args->variant,
+                  "per-variable (default) or symmetric (pseudo-likelihood, screening); logarithmic (screening)")
+      ->check(CLI::IsMember({"per-variable", "symmetric", "logarithmic"}));
+  sub->add_option("--l2", args->l2, "L2 penalty per sample, or 'auto' (held-out choice; default for pseudo-likelihood)");
+  sub->add_option("--l1", args->l1, "L1 penalty per sample, or 'auto' (held-out choice; default for screening)");
+  sub->add_option("--shrinkage", args->shrinkage, "Closed forms: shrink C towards its diagonal (0..1)")
+      ->check(CLI::Range(0.0, 1.0));
+  sub->add_flag("--mean-field-fallback", args->fallback,
+                "Closed forms: use the mean-field value where TAP/Bethe have no real root");
+  sub->add_option("--convention", args->convention, "How the data's values are read; default: detect")
+      ->check(CLI::IsMember({"binary", "spin"}));
+  sub->add_option("--model-convention", args->output_convention,
+                  "Convention of the written model; default: the data's")
+      ->check(CLI::IsMember({"binary", "spin"}));
+  sub->add_option("--member", args->member, "Array to read from an .npz archive");
+  sub->add_flag("--drop-constant", args->drop_constant, "Drop units that are never or always active");
+  sub->add_option("--max-iterations", args->max_iterations, "Iteration budget")->check(CLI::PositiveNumber);
+  sub->add_option("--tolerance", args->tolerance, "Largest per-sample gradient entry at convergence")
+      ->check(CLI::PositiveNumber);
+  add_common_options(*sub, ctx.common);
+  sub->footer(
+      "Penalties are per sample (the objectives are averages over samples). Without --l2/--l1,\n"
+      "pseudo-likelihood chooses l2 and screening chooses l1 on held-out data (the last 20% of\n"
+      "the rows, a contiguous block). The model file is JSON (format spinfer-model; see README).\n\n"
+      "Example:\n  spinfer fit recording.npz --method pseudo-likelihood --out model.json\n");
+  sub->callback([&ctx, args] { ctx.run = [&ctx, args] { return run_fit(ctx, *args); }; });
+}
+
+}  // namespace spinfer::cli
