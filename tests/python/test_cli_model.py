@@ -93,3 +93,65 @@ def test_scan_exact_matches_enumeration(cli, small_model, tmp_path):
         assert c == pytest.approx(ex["specific_heat"], rel=1e-12)
     assert min(j["temperatures"]) <= j["peak_temperature"] <= max(j["temperatures"])
     assert run(cli, "scan", path, "--temperatures", "1:2").returncode == 65
+
+
+@pytest.mark.parametrize("method", ["pseudo-likelihood", "screening", "mean-field", "tap",
+                                    "independent-pair", "sessak-monasson", "bethe"])
+def test_fit_cli_equals_python(cli, small_model, tmp_path, method):
+    model, _ = small_model
+    X, _ = spinfer.sample(model.fields, model.couplings, "binary", 4000, seed=8)
+    data = tmp_path / "d.npy"
+    np.save(data, X)
+    out = tmp_path / "m.json"
+    r = run(cli, "fit", data, "--method", method, "--out", out, "--threads", 1)
+    assert r.returncode == 0, r.stderr
+    summary = json.loads(r.stdout.strip().splitlines()[-1])
+    assert summary["method"] == method and summary["converged"]
+    from_cli = spinfer.load_model(out)
+    from_py = spinfer.fit(X, method, threads=1)
+    assert from_cli.convention == "binary"
+    np.testing.assert_allclose(from_cli.couplings, from_py.couplings, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(from_cli.fields, from_py.fields, rtol=0, atol=1e-12)
+    assert from_cli.provenance["method"] == method
+
+
+def test_fit_cli_penalties_and_bad_options(cli, small_model, tmp_path):
+    model, _ = small_model
+    X, _ = spinfer.sample(model.fields, model.couplings, "binary", 3000, seed=9)
+    data = tmp_path / "d.npy"
+    np.save(data, X)
+    out = tmp_path / "m.json"
+    r = run(cli, "fit", data, "--l2", "0.01", "--variant", "symmetric", "--model-convention", "spin", "--out", out)
+    assert r.returncode == 0, r.stderr
+    m = spinfer.load_model(out)
+    assert m.convention == "spin" and m.provenance["l2"] == 0.01
+    assert m.provenance["extra"]["variant"] == "symmetric"
+    assert run(cli, "fit", data, "--method", "magic", "--out", out, "--force").returncode == 2
+    assert run(cli, "fit", data, "--l2", "-1", "--out", out, "--force").returncode == 65
+    assert run(cli, "fit", data, "--method", "tap", "--l2", "0.1", "--out", tmp_path / "x.json").returncode == 65
+    assert not (tmp_path / "x.json").exists()
+    const = tmp_path / "c.npy"
+    Y = X.copy()
+    Y[:, 2] = 0
+    np.save(const, Y)
+    r = run(cli, "fit", const, "--out", tmp_path / "y.json")
+    assert r.returncode == 65 and "never active: unit 3" in r.stderr
+    assert run(cli, "fit", const, "--drop-constant", "--out", tmp_path / "y.json").returncode == 0
+    assert spinfer.load_model(tmp_path / "y.json").n_units == 5
+
+
+def test_report_cli_writes_self_contained_html(cli, small_model, tmp_path):
+    pytest.importorskip("matplotlib")
+    model, path = small_model
+    X, _ = spinfer.sample(model.fields, model.couplings, "binary", 3000, seed=10)
+    data = tmp_path / "d.npy"
+    np.save(data, X)
+    assert run(cli, "check", path, data, "--out", tmp_path / "c.json", "--replicates", 20).returncode == 0
+    out = tmp_path / "r.html"
+    r = run(cli, "report", path, "--check", tmp_path / "c.json", "--truth", path, "--out", out)
+    assert r.returncode == 0, r.stderr
+    html = out.read_text()
+    assert "<script" not in html and "http" not in html and "data:image/png;base64," in html
+    assert "not anatomical" in html or "statistical" in html
+    r = run(cli, "report", path, "--out", out)
+    assert r.returncode == 66 and "--force" in r.stderr
