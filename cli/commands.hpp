@@ -17,5 +17,7 @@ void add_sample_command(CLI::App& app, Context& ctx);
 void add_check_command(CLI::App& app, Context& ctx);
 void add_scan_command(CLI::App& app, Context& ctx);
 void add_report_command(CLI::App& app, Context& ctx);
+void add_refine_command(CLI::App& app, Context& ctx);
+void add_significance_command(CLI::App& app, Context& ctx);
 
 }  // namespace spinfer::cli

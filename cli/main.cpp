@@ -22,6 +22,8 @@ int main(int argc, char** argv) {
   add_sample_command(app, ctx);
   add_check_command(app, ctx);
   add_scan_command(app, ctx);
+  add_refine_command(app, ctx);
+  add_significance_command(app, ctx);
   add_report_command(app, ctx);
 
   try {

@@ -155,3 +155,41 @@ def test_report_cli_writes_self_contained_html(cli, small_model, tmp_path):
     assert "not anatomical" in html or "statistical" in html
     r = run(cli, "report", path, "--out", out)
     assert r.returncode == 66 and "--force" in r.stderr
+
+
+def test_refine_cli_matches_data_moments(cli, small_model, tmp_path):
+    model, _ = small_model
+    X, _ = spinfer.sample(model.fields, model.couplings, "binary", 20000, seed=12)
+    data = tmp_path / "d.npy"
+    np.save(data, X)
+    start = tmp_path / "start.json"
+    assert run(cli, "fit", data, "--method", "mean-field", "--out", start).returncode == 0
+    out = tmp_path / "refined.json"
+    r = run(cli, "refine", start, data, "--expectations", "exact", "--out", out)
+    assert r.returncode == 0, r.stderr
+    refined = spinfer.load_model(out)
+    # Exact-expectation learning ends at the maximum-likelihood point, where the model's means
+    # equal the data's (the moment-matching condition; checked by exact enumeration).
+    ex = spinfer.exact_statistics(refined, moments_convention="binary")
+    np.testing.assert_allclose(ex["mean"], X.mean(axis=0), atol=1e-7)
+    assert refined.provenance["method"] == "boltzmann-learning"
+
+
+def test_significance_cli_writes_edge_table(cli, tmp_path):
+    pd = pytest.importorskip("pandas")
+    n = 6
+    J = np.zeros((n, n))
+    J[0, 1] = J[1, 0] = 1.2
+    X, _ = spinfer.sample(np.full(n, -0.2), J, "spin", 4000, seed=13)
+    data = tmp_path / "d.npy"
+    np.save(data, X)
+    out = tmp_path / "edges.csv"
+    r = run(cli, "significance", data, "--method", "mean-field", "--bootstrap", 30, "--nulls", 60,
+            "--out", out, "--seed", 1)
+    assert r.returncode == 0, r.stderr
+    t = pd.read_csv(out)
+    assert len(t) == 15 and list(t.columns[:4]) == ["i", "j", "source", "target"]
+    top = t.iloc[0]
+    assert (top["i"], top["j"]) == (0, 1) and bool(top["significant"])
+    assert top["lower"] <= top["coupling"] <= top["upper"]
+    assert run(cli, "significance", data, "--fdr", "2", "--out", tmp_path / "x.csv").returncode == 2

@@ -1,0 +1,144 @@
+// `spinfer significance`: bootstrap intervals, a group-shift null and Benjamini-Hochberg decisions
+// for every coupling (significance.hpp); writes an edge table (CSV).
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <memory>
+
+#include <nlohmann/json.hpp>
+
+#include "commands.hpp"
+#include "spinfer/atomic_file.hpp"
+#include "spinfer/errors.hpp"
+#include "spinfer/fit.hpp"
+#include "spinfer/io.hpp"
+#include "spinfer/significance.hpp"
+
+namespace spinfer::cli {
+namespace {
+
+struct SignificanceArgs {
+  std::string data, method = "pseudo-likelihood", convention, member, l1, l2, model_convention = "spin";
+  std::int64_t bootstrap = 100, nulls = 20, block_length = 0;
+  double confidence = 0.95, fdr = 0.05;
+};
+
+std::optional<double> penalty(const std::string& t) {
+  if (t.empty()) return std::nullopt;
+  if (t == "auto") return kAutomaticPenalty;
+  try {
+    std::size_t used = 0;
+    const double v = std::stod(t, &used);
+    if (used == t.size() && v >= 0) return v;
+  } catch (const std::exception&) {
+  }
+  throw InputError("penalty '" + t + "': expected a number >= 0 or 'auto'");
+}
+
+std::string csv_field(const std::string& s) {
+  if (s.find_first_of(",\"\n") == std::string::npos) return s;
+  std::string q = "\"";
+  for (char c : s) q += c == '"' ? std::string("\"\"") : std::string(1, c);
+  return q + "\"";
+}
+
+int run_significance(const Context& ctx, const SignificanceArgs& a) {
+  if (ctx.common.out.empty()) throw InputError("--out is required");
+  check_output_path(ctx.common.out, ctx.common.force);
+  ReadOptions ro;
+  if (!a.convention.empty()) ro.convention = parse_convention(a.convention);
+  ro.member = a.member;
+  const SpinMatrix data = read_matrix(a.data, ro);
+  FitOptions fo;
+  fo.method = a.method;
+  fo.l1 = penalty(a.l1);
+  fo.l2 = penalty(a.l2);
+  fo.threads = ctx.common.threads;
+  // The held-out penalty is chosen once on the full data and reused by every refit.
+  if (fo.l2.value_or(0) == kAutomaticPenalty || fo.l1.value_or(0) == kAutomaticPenalty ||
+      (!fo.l1 && !fo.l2 && (a.method == "pseudo-likelihood" || a.method == "screening"))) {
+    const IsingModel first = fit_model(data, fo);
+    fo.l1 = first.provenance.l1;
+    fo.l2 = first.provenance.l2;
+    log_info(ctx, "penalty", "penalties fixed for all refits: l1 = " + std::to_string(*fo.l1) +
+                                 ", l2 = " + std::to_string(*fo.l2));
+  }
+  SignificanceOptions so;
+  so.bootstrap_replicates = a.bootstrap;
+  so.null_replicates = a.nulls;
+  so.block_length = a.block_length;
+  so.confidence = a.confidence;
+  so.fdr = a.fdr;
+  so.convention = parse_convention(a.model_convention);
+  so.seed = ctx.common.seed;
+  so.progress = progress_logger(ctx, "significance");
+  const SignificanceResult r = coupling_significance(data, [&](const SpinMatrix& d) { return fit_model(d, fo); }, so);
+  const std::int64_t N = data.cols();
+  struct Row { std::int64_t i, j; };
+  std::vector<Row> rows;
+  for (std::int64_t i = 0; i < N; ++i)
+    for (std::int64_t j = i + 1; j < N; ++j) rows.push_back({i, j});
+  std::stable_sort(rows.begin(), rows.end(), [&](const Row& x, const Row& y) {
+    return std::abs(r.estimate(x.i, x.j)) > std::abs(r.estimate(y.i, y.j));
+  });
+  std::int64_t found = 0;
+  write_file_atomically(ctx.common.out, [&](std::ostream& out) {
+    out << "i,j,source,target,coupling,standard_error,lower,upper,p_value,q_value,significant\n";
+    char buf[512];
+    for (const Row& w : rows) {
+      std::snprintf(buf, sizeof buf, ",%.17g,%.17g,%.17g,%.17g,%.17g,%.17g,%s\n", r.estimate(w.i, w.j),
+                    r.standard_error(w.i, w.j), r.lower(w.i, w.j), r.upper(w.i, w.j), r.p_value(w.i, w.j),
+                    r.q_value(w.i, w.j), r.significant(w.i, w.j) ? "true" : "false");
+      out << w.i << "," << w.j << "," << csv_field(data.name(w.i)) << "," << csv_field(data.name(w.j)) << buf;
+      found += r.significant(w.i, w.j);
+    }
+  });
+  // The smallest possible p-value is 1 / (1 + null values); Benjamini-Hochberg multiplies the
+  // smallest by the number of pairs, so with too few null refits nothing can be significant.
+  const double floor_q = double(rows.size()) / (1.0 + double(r.null_abs.size()));
+  if (floor_q > a.fdr)
+    log_info(ctx, "warning", "warning: with " + std::to_string(r.null_abs.size()) +
+                                 " null values the smallest attainable q-value is " + std::to_string(floor_q) +
+                                 " > FDR " + std::to_string(a.fdr) + "; raise --nulls");
+  log_info(ctx, "significance", std::to_string(found) + " of " + std::to_string(rows.size()) +
+                                    " couplings significant at FDR " + std::to_string(a.fdr) + " -> " + ctx.common.out);
+  log_info(ctx, "significance", "significant couplings are statistical dependencies, not proof of a connection");
+  print_summary(nlohmann::json{{"command", "significance"}, {"data", a.data}, {"output", ctx.common.out},
+                               {"method", a.method}, {"pairs", rows.size()}, {"significant", found},
+                               {"fdr", a.fdr}, {"block_length", r.block_length},
+                               {"bootstrap", r.bootstrap_replicates}, {"nulls", r.null_replicates},
+                               {"provenance", provenance_json(ctx, {a.data})}}.dump());
+  return kOk;
+}
+
+}  // namespace
+
+void add_significance_command(CLI::App& app, Context& ctx) {
+  auto args = std::make_shared<SignificanceArgs>();
+  CLI::App* sub = app.add_subcommand("significance", "Bootstrap intervals and FDR decisions for every coupling");
+  sub->add_option("DATA", args->data, "Data matrix (.npy, .npz, .csv, .tsv, .txt)")->required();
+  sub->add_option("--method,-m", args->method, "Estimator refitted on every replicate (as in spinfer fit)")
+      ->check(CLI::IsMember({"pseudo-likelihood", "screening", "mean-field", "tap", "independent-pair",
+                             "sessak-monasson", "bethe"}));
+  sub->add_option("--l2", args->l2, "L2 penalty, or 'auto' (chosen once on the full data)");
+  sub->add_option("--l1", args->l1, "L1 penalty, or 'auto'");
+  sub->add_option("--bootstrap", args->bootstrap, "Block-bootstrap refits")->check(CLI::Range(2, 100000));
+  sub->add_option("--nulls", args->nulls, "Shift-surrogate refits for the null")->check(CLI::Range(1, 100000));
+  sub->add_option("--block-length", args->block_length, "Bootstrap block (0: from the data)")
+      ->check(CLI::NonNegativeNumber);
+  sub->add_option("--confidence", args->confidence, "Level of the intervals")->check(CLI::Range(0.5, 0.999));
+  sub->add_option("--fdr", args->fdr, "Benjamini-Hochberg false discovery rate")->check(CLI::Range(0.0001, 0.5));
+  sub->add_option("--model-convention", args->model_convention, "Convention of the reported couplings")
+      ->check(CLI::IsMember({"binary", "spin"}));
+  sub->add_option("--convention", args->convention, "How the data's values are read; default: detect")
+      ->check(CLI::IsMember({"binary", "spin"}));
+  sub->add_option("--member", args->member, "Array to read from an .npz archive");
+  add_common_options(*sub, ctx.common);
+  sub->footer(
+      "Writes an edge table (CSV, strongest first): i, j, source, target, coupling, standard_error,\n"
+      "lower, upper, p_value, q_value, significant. Every replicate refits the whole model.\n\n"
+      "Example:\n  spinfer significance recording.npz --bootstrap 100 --nulls 20 --out edges.csv --seed 1\n");
+  sub->callback([&ctx, args] { ctx.run = [&ctx, args] { return run_significance(ctx, *args); }; });
+}
+
+}  // namespace spinfer::cli
