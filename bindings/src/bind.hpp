@@ -28,6 +28,9 @@ void bind_partition(py::module_& m);
 // Shared conversions (defined in bind_model.cpp and bind_sampler.cpp).
 py::dict model_to_dict(const IsingModel& m);
 IsingModel model_from_dict(const py::dict& d);
+/// A validated model from plain arrays and a convention name (bind_sampler.cpp).
+IsingModel model_from_arrays(const Eigen::VectorXd& fields, const Eigen::MatrixXd& couplings,
+                             const std::string& convention);
 py::object json_to_py(const nlohmann::json& j);
 /// Progress callback for long calls: takes the GIL briefly, runs Python signal handlers (Ctrl-C
 /// -> KeyboardInterrupt) and an optional user callable(dict) -> bool.

@@ -10,16 +10,6 @@
 namespace spinfer::py_bind {
 namespace {
 
-IsingModel model_arrays(const Eigen::VectorXd& fields, const Eigen::MatrixXd& couplings,
-                        const std::string& convention) {
-  IsingModel m;
-  m.convention = parse_convention(convention);
-  m.fields = fields;
-  m.couplings = couplings;
-  validate_model(m, "model");
-  return m;
-}
-
 PartitionOptions options_from_dict(const py::dict& d) {
   PartitionOptions o;
   py::object progress = py::none();
@@ -92,7 +82,7 @@ py::dict entropy_dict(const EntropyEstimate& e) {
 
 py::dict log_partition_py(const Eigen::VectorXd& fields, const Eigen::MatrixXd& couplings,
                           const std::string& convention, const py::dict& options) {
-  const IsingModel model = model_arrays(fields, couplings, convention);
+  const IsingModel model = model_from_arrays(fields, couplings, convention);
   const PartitionOptions o = options_from_dict(options);
   LogPartitionEstimate e;
   {
@@ -105,7 +95,7 @@ py::dict log_partition_py(const Eigen::VectorXd& fields, const Eigen::MatrixXd& 
 py::dict log_likelihood_py(const Eigen::VectorXd& fields, const Eigen::MatrixXd& couplings,
                            const std::string& convention, const SpinMatrix& data,
                            const py::dict& options) {
-  const IsingModel model = model_arrays(fields, couplings, convention);
+  const IsingModel model = model_from_arrays(fields, couplings, convention);
   const PartitionOptions o = options_from_dict(options);
   LikelihoodEstimate e;
   {
@@ -124,7 +114,7 @@ py::dict log_likelihood_py(const Eigen::VectorXd& fields, const Eigen::MatrixXd&
 
 py::dict entropy_py(const Eigen::VectorXd& fields, const Eigen::MatrixXd& couplings,
                     const std::string& convention, const py::dict& options) {
-  const IsingModel model = model_arrays(fields, couplings, convention);
+  const IsingModel model = model_from_arrays(fields, couplings, convention);
   const PartitionOptions o = options_from_dict(options);
   EntropyEstimate e;
   {
@@ -137,7 +127,7 @@ py::dict entropy_py(const Eigen::VectorXd& fields, const Eigen::MatrixXd& coupli
 py::dict multi_information_py(const Eigen::VectorXd& fields, const Eigen::MatrixXd& couplings,
                               const std::string& convention, const SpinMatrix& data,
                               const py::dict& options) {
-  const IsingModel model = model_arrays(fields, couplings, convention);
+  const IsingModel model = model_from_arrays(fields, couplings, convention);
   const PartitionOptions o = options_from_dict(options);
   MultiInformation mi;
   {

@@ -36,8 +36,6 @@ ProgressCallback progress_callback(const py::object& user) {
   };
 }
 
-namespace {
-
 IsingModel model_from_arrays(const Eigen::VectorXd& fields, const Eigen::MatrixXd& couplings,
                              const std::string& convention) {
   IsingModel m;
@@ -47,6 +45,8 @@ IsingModel model_from_arrays(const Eigen::VectorXd& fields, const Eigen::MatrixX
   validate_model(m, "model");
   return m;
 }
+
+namespace {
 
 SamplerOptions options_from_dict(const py::dict& d) {
   SamplerOptions o;
