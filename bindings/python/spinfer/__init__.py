@@ -59,6 +59,7 @@ from .fitting import (  # noqa: E402
     fit_pseudo_likelihood, fit_screening, penalty_path, default_penalty_grid, pseudo_log_likelihood,
 )
 from .refinement import refine  # noqa: E402
+from .estimator import PairwiseNetwork  # noqa: E402
 
 
 def build_info() -> str:
@@ -124,4 +125,5 @@ __all__ = [
     "default_penalty_grid",
     "pseudo_log_likelihood",
     "refine",
+    "PairwiseNetwork",
 ]
