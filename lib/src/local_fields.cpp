@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <vector>
 
 #include "spinfer/errors.hpp"
 #include "spinfer/threads.hpp"
@@ -162,6 +163,32 @@ VectorXd LocalFields::spin_means() const {
       for (std::int64_t i = 0; i < N_; ++i) m(i) += w * (2.0 * x[i] - 1.0);
     }
   return m / total_weight_;
+}
+
+MatrixXd LocalFields::second_moments() const {
+  // Fixed blocks of kernel rows, one partial sum each, added in block order.
+  constexpr std::int64_t block = 4096;
+  std::vector<std::pair<std::int64_t, std::int64_t>> blocks;
+  for (const RowRange& g : ranges_)
+    for (std::int64_t b0 = g.begin; b0 < g.end; b0 += block)
+      blocks.emplace_back(b0, std::min(block, g.end - b0));
+  std::vector<MatrixXd> partial(blocks.size());
+  const std::int64_t N = N_;
+  SingleThreadedBlas single;
+  parallel_for(std::int64_t(blocks.size()), threads_, [&](std::int64_t k) {
+    const auto [b0, nb] = blocks[std::size_t(k)];
+    MatrixXd Z(N + 1, nb);
+    ByteMap bytes(rows_->row(b0), N, nb, Eigen::OuterStride<>(N));
+    Z.topRows(N) = bytes.cast<double>() * 2.0 - MatrixXd::Ones(N, nb);
+    Z.row(N).setOnes();
+    MatrixXd Zw = Z;
+    if (!weights_.empty())
+      for (std::int64_t b = 0; b < nb; ++b) Zw.col(b) *= weights_[std::size_t(b0 + b)];
+    partial[std::size_t(k)].noalias() = Zw * Z.transpose();  // GEMM
+  });
+  MatrixXd M = MatrixXd::Zero(N + 1, N + 1);
+  for (const MatrixXd& p : partial) M += p;
+  return M / total_weight_;
 }
 
 void LocalFields::evaluate(LocalLoss loss, const MatrixXd& theta, const VectorXd& h,

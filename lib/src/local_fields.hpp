@@ -81,6 +81,12 @@ class LocalFields {
   /// Weighted means of s (N), for initial fields.
   Eigen::VectorXd spin_means() const;
 
+  /// Weighted mean of z z^T with z = (s, 1): (N+1) x (N+1), the last row/column holding the
+  /// means of s. Summed over fixed row blocks in a fixed order (thread-count independent).
+  Eigen::MatrixXd second_moments() const;
+
+  int threads() const { return threads_; }
+
  private:
   void evaluate_chunk(LocalLoss loss, const Eigen::MatrixXd& theta, const Eigen::VectorXd& h,
                       bool gradient, std::int64_t i0, std::int64_t nc, Eigen::VectorXd& loss_sums,
