@@ -8,6 +8,24 @@
 
 namespace spinfer {
 
+namespace {
+
+// The settings pseudo-likelihood and screening share; unset penalties keep each method's default.
+template <typename Options>
+void copy_iterative_options(const FitOptions& o, Options& out) {
+  out.symmetric = o.symmetric;
+  if (o.l1) out.l1 = *o.l1;
+  if (o.l2) out.l2 = *o.l2;
+  out.max_iterations = o.max_iterations;
+  out.tolerance = o.tolerance;
+  out.threads = o.threads;
+  out.warm_start = o.warm_start;
+  out.progress = o.progress;
+  out.representation = o.representation;
+}
+
+}  // namespace
+
 std::vector<std::string> fit_methods() {
   std::vector<std::string> m = {"pseudo-likelihood", "screening"};
   for (const auto& c : closed_form_methods()) m.push_back(c);
@@ -31,29 +49,13 @@ IsingModel fit_model(const SpinMatrix& data, const FitOptions& o) {
   if (o.method == "pseudo-likelihood") {
     known = true;
     PseudoLikelihoodOptions po;
-    po.symmetric = o.symmetric;
-    if (o.l1) po.l1 = *o.l1;
-    if (o.l2) po.l2 = *o.l2;
-    po.max_iterations = o.max_iterations;
-    po.tolerance = o.tolerance;
-    po.threads = o.threads;
-    po.warm_start = o.warm_start;
-    po.progress = o.progress;
-    po.representation = o.representation;
+    copy_iterative_options(o, po);
     model = fit_pseudo_likelihood(data, po);
   } else if (o.method == "screening") {
     known = true;
     ScreeningOptions so;
     so.logarithmic = o.logarithmic;
-    so.symmetric = o.symmetric;
-    if (o.l1) so.l1 = *o.l1;
-    if (o.l2) so.l2 = *o.l2;
-    so.max_iterations = o.max_iterations;
-    so.tolerance = o.tolerance;
-    so.threads = o.threads;
-    so.warm_start = o.warm_start;
-    so.progress = o.progress;
-    so.representation = o.representation;
+    copy_iterative_options(o, so);
     model = fit_screening(data, so);
   } else if (known && (o.l1.value_or(0) != 0 || o.l2.value_or(0) != 0)) {
     throw InputError("method '" + o.method + "' takes no penalty (--l1/--l2); use shrinkage instead");
