@@ -1,6 +1,7 @@
 // `spinfer report`: the HTML report is drawn by the Python package (matplotlib), so this
 // subcommand hands its arguments to `python3 -m spinfer report` (SPINFER_PYTHON overrides the
-// interpreter). All options are passed through unchanged.
+// interpreter; by default the python3 beside this command, else python3 on PATH). All options
+// are passed through unchanged.
 #include <unistd.h>
 
 #include <cerrno>
@@ -23,8 +24,19 @@ void add_report_command(CLI::App& app, Context& ctx) {
       "Example:\n  spinfer report model.json --check check.json --out report.html\n");
   sub->callback([&ctx, sub] {
     ctx.run = [sub] {
+      // SPINFER_PYTHON, else the python3 installed beside this command (pip puts both in one
+      // scripts folder, e.g. a virtual environment's bin/), else python3 from PATH.
       const char* py = std::getenv("SPINFER_PYTHON");
-      const std::string python = py && *py ? py : "python3";
+      std::string python = py && *py ? py : "python3";
+      if (!(py && *py)) {
+        char self[4096];
+        const ssize_t n = ::readlink("/proc/self/exe", self, sizeof self - 1);
+        if (n > 0) {
+          std::string dir(self, std::size_t(n));
+          dir = dir.substr(0, dir.find_last_of('/'));
+          if (::access((dir + "/python3").c_str(), X_OK) == 0) python = dir + "/python3";
+        }
+      }
       std::vector<std::string> args = {python, "-m", "spinfer", "report"};
       for (const auto& r : sub->remaining()) args.push_back(r);
       std::vector<char*> cargs;
