@@ -118,7 +118,7 @@ Eigen::VectorXd mean_field_fields(const Prepared& p, const Eigen::MatrixXd& J) {
   return p.m.array().atanh().matrix() - J * p.m;
 }
 
-// h_i = atanh m_i - sum_j J_ij m_j + m_i sum_j J_ij^2 (1 - m_j^2)   (sheet §1.2)
+// h_i = atanh m_i - sum_j J_ij m_j + m_i sum_j J_ij^2 (1 - m_j^2)
 Eigen::VectorXd tap_fields(const Prepared& p, const Eigen::MatrixXd& J) {
   const Eigen::VectorXd L = (1.0 - p.m.array().square()).matrix();
   return mean_field_fields(p, J) + p.m.cwiseProduct(J.cwiseAbs2() * L);
@@ -148,7 +148,7 @@ IsingModel finish(Prepared& p, Eigen::MatrixXd J, Eigen::VectorXd h, std::int64_
   return model;
 }
 
-// Pair table p(a, b) = [1 + a m_i + b m_j + ab (C_ij + m_i m_j)] / 4 (sheet §1.3); returns
+// Pair table p(a, b) = [1 + a m_i + b m_j + ab (C_ij + m_i m_j)] / 4; returns
 // J^IP and fills the pair fields h_i^(j), h_j^(i).
 double independent_pair(const Prepared& p, Eigen::Index i, Eigen::Index j, double* hij,
                         double* hji) {
@@ -190,7 +190,7 @@ IsingModel fit_tap(const Moments& moments, const ClosedFormOptions& options) {
   Eigen::MatrixXd J = Eigen::MatrixXd::Zero(p.N, p.N);
   for (Eigen::Index i = 0; i < p.N; ++i)
     for (Eigen::Index j = i + 1; j < p.N; ++j) {
-      // (C^-1)_ij = -J - 2 J^2 m_i m_j; the root that tends to mean-field as m -> 0 (sheet §1.2)
+      // (C^-1)_ij = -J - 2 J^2 m_i m_j; the root that tends to mean-field as m -> 0
       const double x = inv(i, j), disc = 1 - 8 * x * p.m(i) * p.m(j);
       double v;
       if (disc >= 0) {
@@ -216,7 +216,7 @@ IsingModel fit_independent_pair(const Moments& moments, const ClosedFormOptions&
     for (Eigen::Index j = i + 1; j < p.N; ++j) {
       double hij = 0, hji = 0;
       J(i, j) = J(j, i) = independent_pair(p, i, j, &hij, &hji);
-      // h_i = atanh m_i + sum_j (h_i^(j) - atanh m_i)   (sheet §1.3)
+      // h_i = atanh m_i + sum_j (h_i^(j) - atanh m_i)
       h(i) += hij - h0(i);
       h(j) += hji - h0(j);
     }
@@ -229,7 +229,7 @@ IsingModel fit_sessak_monasson(const Moments& moments, const ClosedFormOptions& 
   Eigen::MatrixXd J = Eigen::MatrixXd::Zero(p.N, p.N);
   for (Eigen::Index i = 0; i < p.N; ++i)
     for (Eigen::Index j = i + 1; j < p.N; ++j) {
-      // J = -(C^-1)_ij + J^IP - C_ij / (L_i L_j - C_ij^2)   (Sessak & Monasson 2009; sheet §1.4)
+      // J = -(C^-1)_ij + J^IP - C_ij / (L_i L_j - C_ij^2)   (Sessak & Monasson 2009)
       const double c = p.C(i, j);
       const double denom = p.C(i, i) * p.C(j, j) - c * c;
       if (!(denom > 0)) no_root(p, i, j, "the pair is perfectly correlated");
@@ -272,7 +272,7 @@ IsingModel fit_bethe(const Moments& moments, const ClosedFormOptions& options) {
       }
       J(i, j) = J(j, i) = v;
     }
-  // h_i = atanh m_i - sum_j atanh[t f(m_j, m_i, t)], t = tanh J_ij (sheet §1.5), with
+  // h_i = atanh m_i - sum_j atanh[t f(m_j, m_i, t)], t = tanh J_ij, with
   // t f = 2t (m1 - m2 t) / (1 - t^2 + sqrt((1 - t^2)^2 - 4t (m1 - m2 t)(m2 - m1 t))).
   Eigen::VectorXd h = p.m.array().atanh();
   for (Eigen::Index i = 0; i < p.N; ++i)

@@ -49,7 +49,7 @@ bool cpu_has_avx2() {
 }
 
 // phi and w * phi' for one block; S holds s = +-1, H the local fields.
-//   pseudo-likelihood: phi = log 2cosh H - s H, phi' = tanh H - s   (Besag 1975; sheet §1.6)
+//   pseudo-likelihood: phi = log 2cosh H - s H, phi' = tanh H - s   (Besag 1975)
 //   screening:         phi = e^{-s H},  phi' = -s e^{-s H}          (Vuffray et al. 2016; §1.7)
 void nonlinearity(LocalLoss loss, const ArrayXXd& H, const ArrayXXd& S, const double* w,
                   bool gradient, ArrayXXd& phi, ArrayXXd& R) {

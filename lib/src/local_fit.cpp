@@ -24,7 +24,7 @@ using Eigen::VectorXd;
 // Parameter layout for liblbfgs (penalised couplings first, so OWL-QN's range is contiguous):
 //   per-variable: [Theta (N x N, column-major, column i = couplings into unit i; diagonal kept
 //                  at 0 with zero gradient), h (N)]
-//   symmetric:    [J_ij for i < j packed row by row (sheet §5.2), h (N)]
+//   symmetric:    [J_ij for i < j packed row by row, h (N)]
 class Problem {
  public:
   Problem(const LocalFields& fields, const LocalFitSettings& s)

@@ -129,7 +129,7 @@ Target data_target(const SpinMatrix& data, const RefineOptions& o, RefineResult&
     B = s2 > 0 ? s1 * s1 / s2 : 1.0;
   }
   if (o.noise == "iid") {
-    // sheet §4.6: sigma^2 = (1 - m^2) / B and (1 - c^2) / B
+    // iid noise (Cocco & Monasson 2011): sigma^2 = (1 - m^2) / B and (1 - c^2) / B
     t.sigma_m = ((1.0 - t.m.array().square()).max(0.0) / B).sqrt();
     t.sigma_c = ((1.0 - t.c.array().square()).max(0.0) / B).sqrt();
   } else {

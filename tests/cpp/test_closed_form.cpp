@@ -1,11 +1,11 @@
 // Closed-form inversions checked on exact moments (exact enumeration) against the exactness
-// limits and computed anchors of the literature sheet (/work/shared/research/anchors-literature.md):
-//   Bethe exact on trees (Ricci-Tersenghi 2012; Nguyen & Berg 2012; sheet §1.5, §3.9),
-//   IP and SM exact for N = 2 (Roudi, Aurell & Hertz 2009; Sessak & Monasson 2009; sheet §3.9),
-//   TAP = mean-field at m = 0 (Kappen & Rodriguez 1998; sheet §1.2),
-//   mean-field bias O(beta^2) with fields (the O(J^2) TAP term it omits, sheet §1.2),
-//   J = 0, h = atanh m for independent units (sheet §3.9),
-//   SK N = 12 exact-moment bias table (sheet §2.2(a) [C], a loose regression).
+// limits named below and one computed regression table:
+//   Bethe exact on trees (Ricci-Tersenghi 2012; Nguyen & Berg 2012),
+//   IP and SM exact for N = 2 (Roudi, Aurell & Hertz 2009; Sessak & Monasson 2009),
+//   TAP = mean-field at m = 0 (Kappen & Rodriguez 1998),
+//   mean-field bias O(beta^2) with fields (the O(J^2) TAP term it omits),
+//   J = 0, h = atanh m for independent units,
+//   SK N = 12 exact-moment bias table (values computed by enumeration elsewhere; a loose regression).
 #include <doctest/doctest.h>
 
 #include <algorithm>
@@ -50,7 +50,7 @@ IsingModel sk(int N, double beta, double field_sd, std::uint64_t seed) {
   return spin_model(h, J);
 }
 
-// eps_J = ||J^ - J||_F / ||J||_F over off-diagonal entries (sheet §0).
+// eps_J = ||J^ - J||_F / ||J||_F over off-diagonal entries.
 double coupling_error(const IsingModel& fit, const IsingModel& truth) {
   return (fit.couplings - truth.couplings).norm() / truth.couplings.norm();
 }
@@ -109,7 +109,7 @@ TEST_CASE("closed form: TAP couplings equal mean-field couplings at zero magneti
 }
 
 TEST_CASE("closed form: mean-field coupling error is O(beta^2) with fields") {
-  // With m != 0 the leading omitted term is TAP's 2 J^2 m_i m_j (sheet §1.2): absolute error
+  // With m != 0 the leading omitted term is TAP's 2 J^2 m_i m_j: absolute error
   // ~ beta^2, so the slope of log(error) against log(beta) is 2.
   const IsingModel base = sk(8, 1.0, 0.5, 9);
   std::vector<double> lb, le;
@@ -145,13 +145,13 @@ TEST_CASE("closed form: independent units give J = 0 and h = atanh m for every m
   }
 }
 
-TEST_CASE("closed form: SK N = 12 exact-moment bias ordering at beta = 0.4 (sheet §2.2(a))") {
+TEST_CASE("closed form: SK N = 12 exact-moment bias ordering at beta = 0.4 (computed regression values)") {
   // Sheet §2.2(a) [C], h = 0, median eps_J over 10 instances: SM 0.0043 < Bethe 0.012 <
-  // nMF 0.032 < IP 0.342. Our instances differ from the sheet's, so values are checked to a factor 1.6
+  // nMF 0.032 < IP 0.342. Our instances differ from the ones those values came from, so values are checked to a factor 1.6
   // (measured here: 0.0037, 0.0134, 0.0307, 0.303).
   const std::vector<std::string> methods = {"sessak-monasson", "bethe", "mean-field",
                                             "independent-pair"};
-  const std::vector<double> sheet = {0.0043, 0.012, 0.032, 0.342};
+  const std::vector<double> reference = {0.0043, 0.012, 0.032, 0.342};
   std::vector<std::vector<double>> errs(methods.size());
   for (std::uint64_t seed = 100; seed < 110; ++seed) {
     const IsingModel truth = sk(12, 0.4, 0.0, seed);
@@ -166,8 +166,8 @@ TEST_CASE("closed form: SK N = 12 exact-moment bias ordering at beta = 0.4 (shee
   }
   for (std::size_t k = 0; k < methods.size(); ++k) {
     CAPTURE(methods[k]);
-    CHECK(median[k] > sheet[k] / 1.6);
-    CHECK(median[k] < sheet[k] * 1.6);
+    CHECK(median[k] > reference[k] / 1.6);
+    CHECK(median[k] < reference[k] * 1.6);
     if (k + 1 < methods.size()) CHECK(median[k] < median[k + 1]);
   }
 }

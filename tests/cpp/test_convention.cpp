@@ -1,5 +1,5 @@
 // Convention conversion of model parameters, checked by exact enumeration of all 2^N states:
-// the binary and spin parameterisations must give identical probabilities (literature sheet §5.1,
+// the binary and spin parameterisations must give identical probabilities (
 // change of variables s = 2x - 1).
 #include <doctest/doctest.h>
 

@@ -1,6 +1,6 @@
-// Exact enumeration against closed forms from the literature sheet
-// (/work/shared/research/anchors-literature.md): 1D chains (§3.5), the 4x4 torus (§3.2, §3.4),
-// Curie-Weiss finite-N sums (§3.6), and the exact {0,1} <-> {-1,+1} conversion (§5.1).
+// Exact enumeration against closed forms: 1D chains (transfer matrix), the 4x4 torus (values
+// from Kaufman's finite-lattice partition function, Phys. Rev. 76:1232, 1949), Curie-Weiss
+// finite-N sums, and the exact {0,1} <-> {-1,+1} conversion (change of variables s = 2x - 1).
 // A plain loop over states (no Gray code) is the reference for log-likelihoods and moments;
 // tests/python/test_exact.py repeats the check against numpy.
 #include <doctest/doctest.h>
@@ -81,7 +81,7 @@ TEST_CASE("exact: log Z and probabilities match a direct sum over states") {
   }
 }
 
-TEST_CASE("exact: 1D chains, open and periodic (transfer matrix, sheet §3.5)") {
+TEST_CASE("exact: 1D chains, open and periodic (transfer matrix)") {
   const int N = 10;
   const double K = 0.7, t = std::tanh(K);
   IsingModel open = zero_model(N), ring = zero_model(N);
@@ -110,7 +110,7 @@ TEST_CASE("exact: 1D chains, open and periodic (transfer matrix, sheet §3.5)") 
         doctest::Approx(std::log(std::pow(lp, N) + std::pow(lm, N))).epsilon(1e-13));
 }
 
-TEST_CASE("exact: 4x4 torus at K_c (Kaufman 1949; sheet §3.2 and §3.4)") {
+TEST_CASE("exact: 4x4 torus at K_c (Kaufman 1949)") {
   const double Kc = 0.5 * std::log(1 + std::sqrt(2.0));
   const int L = 4, N = L * L;
   IsingModel unit = zero_model(N);
@@ -143,7 +143,7 @@ TEST_CASE("exact: 4x4 torus at K_c (Kaufman 1949; sheet §3.2 and §3.4)") {
   CHECK(m2 == doctest::Approx(0.7613589086).epsilon(1e-9));
 }
 
-TEST_CASE("exact: Curie-Weiss finite-N sum (sheet §3.6)") {
+TEST_CASE("exact: Curie-Weiss finite-N sum") {
   // H = -(J/2N) M^2 - h M with M = sum s_i equals J_ij = J/N, h_i = h plus the constant J/2.
   const int N = 18;
   const double beta = 1.0, J = 1.0, h = 0.1;
@@ -168,7 +168,7 @@ TEST_CASE("exact: Curie-Weiss finite-N sum (sheet §3.6)") {
     CHECK(s.active_count(k) == doctest::Approx(std::exp(a[std::size_t(k)] - log_z_cw)).epsilon(1e-11));
 }
 
-TEST_CASE("exact: a model and its convert_model twin are the same distribution (sheet §5.1)") {
+TEST_CASE("exact: a model and its convert_model twin are the same distribution") {
   const IsingModel spin = random_model(10, 2.0, 7, Convention::spin);
   const IsingModel binary = convert_model(spin, Convention::binary);
   const Eigen::VectorXd ps = exact_state_probabilities(spin), pb = exact_state_probabilities(binary);

@@ -1,6 +1,6 @@
 // Pseudo-likelihood, interaction screening and penalty selection.
 // Oracles: exact enumeration of all 2^N states (population weights make the true parameters the
-// exact optimum of PLM, RISE and log-RISE: literature sheet §3.9, Besag 1975, Vuffray et al.
+// exact optimum of PLM, RISE and log-RISE: Besag 1975, Vuffray et al.
 // 2016); central finite differences for gradients; direct per-sample sums for objectives.
 // scikit-learn and sampled-data checks live in tests/python/test_fitting.py.
 #include <doctest/doctest.h>

@@ -1,9 +1,9 @@
 // Boltzmann learning (refine_moments) checked against exact enumeration:
 //   * with exact population moments (all 2^N states weighted by their probabilities) exact-
 //     expectation learning must return the generating model (the log-likelihood is strictly
-//     concave, its maximum matches the moments; literature sheet §1.8 and §3.9);
+//     concave, its maximum matches the moments; Ackley, Hinton & Sejnowski 1985, from memory);
 //   * on B samples, sampled learning must approach the exact maximum-likelihood estimate and
-//     reproduce the data's moments within their sampling noise (sheet §4.6);
+//     reproduce the data's moments within their sampling noise (normalised errors in the style of Cocco & Monasson 2011);
 // and the persistent-chain entry point of the sampler against an exactly predictable chain.
 // Samples are drawn here from the exact probabilities (std::discrete_distribution), not by the
 // sampler under test. Statistical tolerances are in standard errors with fixed seeds.
@@ -76,7 +76,7 @@ double rms_distance(const IsingModel& a, const IsingModel& b) {
 }
 
 /// epsilon_m, epsilon_c and max |z| of the exact moments of `model` against the data, with the
-/// independent-sample noise sigma^2 = (1 - x^2) / B (sheet §4.6).
+/// independent-sample noise sigma^2 = (1 - x^2) / B.
 struct ExactCheck {
   double eps_m = 0, eps_c = 0, max_z = 0;
 };

@@ -1,6 +1,6 @@
 // Monte Carlo sampler against exact results: brute-force enumeration written here, the 1D
-// transfer-matrix correlations, the 2D Ising model (Onsager / Kaufman values from the literature
-// sheet §3.1, §3.4), the finite-N Curie-Weiss sum (§3.6). Statistical checks are
+// transfer-matrix correlations, the 2D Ising model (Onsager 1944 / Yang 1952 magnetisation and
+// energy; Kaufman 1949 finite-torus values), the finite-N Curie-Weiss sum. Statistical checks are
 // |estimate - exact| <= 5 standard errors, with fixed seeds (so they are deterministic).
 #include <doctest/doctest.h>
 
@@ -112,7 +112,7 @@ IsingModel chain_model(int N, double K, bool ring) {
   return m;
 }
 
-/// Curie-Weiss: J_ij = J/N for all pairs, field h (sheet §3.6).
+/// Curie-Weiss: J_ij = J/N for all pairs, field h.
 IsingModel curie_weiss(int N, double J, double h) {
   IsingModel m;
   m.fields = Eigen::VectorXd::Constant(N, h);
@@ -262,7 +262,7 @@ TEST_CASE("sampler: 1D chain correlations match the transfer matrix") {
   o.storage = "sparse";
   const ModelStatistics ring = model_statistics(chain_model(N, K, true), o);
   CHECK(ring.diagnostics.storage == "sparse");
-  CHECK(std::abs((std::pow(t, 3) + std::pow(t, 7)) / (1 + std::pow(t, 10)) - 0.248587049985) < 1e-11);  // sheet
+  CHECK(std::abs((std::pow(t, 3) + std::pow(t, 7)) / (1 + std::pow(t, 10)) - 0.248587049985) < 1e-11);  // computed value
   for (int r = 1; r <= 5; ++r) {
     const double exact = (std::pow(t, r) + std::pow(t, N - r)) / (1 + std::pow(t, N));
     near(ring.second.value(0, r), ring.second.error(0, r), exact, 0.03, "ring");
@@ -275,7 +275,7 @@ TEST_CASE("sampler: 4x4 torus at K_c matches the exact values") {
   // <|m|> = 0.8438604448, <m^2> = 0.7613589086 at K_c = ln(1+sqrt 2)/2.
   const double Kc = 0.5 * std::log(1 + std::sqrt(2.0));
   const IsingModel m = torus(4, Kc);
-  const Exact x = enumerate(m, 1.0);  // and our own enumeration agrees with the sheet
+  const Exact x = enumerate(m, 1.0);  // and our own enumeration agrees with Kaufman's values
   CHECK(x.E / (16 * Kc) == doctest::Approx(-1.5656237876).epsilon(1e-9));
   CHECK(x.C == doctest::Approx(0.7832668259).epsilon(1e-9));
   for (const char* scan : {"sequential", "coloured"})

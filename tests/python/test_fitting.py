@@ -1,8 +1,8 @@
 """Pseudo-likelihood / screening fits through the Python package.
 
 References: scikit-learn LogisticRegression (penalty mapping derived below); naive mean-field
-J = -inv(C) off-diagonal (Kappen & Rodriguez 1998; literature sheet §1.1); the finite-sample
-error scale sqrt(N/B)/beta for consistent estimators on SK couplings (sheet §2.1, a rule of thumb
+J = -inv(C) off-diagonal (Kappen & Rodriguez 1998); the finite-sample
+error scale sqrt(N/B)/beta for consistent estimators on SK couplings (the Fisher-information scale, a rule of thumb
 from the Fisher information; PLM measured at about 2x it for beta = 1). Exact-enumeration
 recovery, gradient checks and thread determinism are in tests/cpp/test_pseudo_likelihood.cpp.
 """
@@ -85,7 +85,7 @@ def test_sk_reconstruction_error_scaling_and_held_out_penalty(sk64):
     for B, (X, J) in sk64.items():
         r = spinfer.fit_pseudo_likelihood(X, threads=2, tolerance=3e-5)  # l2 chosen on held-out data
         err = rel_error(r["couplings"], J)
-        # Naive mean-field with numpy (sheet §1.1): J = -inv(C), off-diagonal.
+        # Naive mean-field with numpy: J = -inv(C), off-diagonal.
         S = 2.0 * X - 1.0
         J_mf = -np.linalg.inv(np.cov(S, rowvar=False))
         np.fill_diagonal(J_mf, 0)

@@ -1,8 +1,8 @@
 """Closed-form fits, model class and model files through the Python package.
 
-Closed forms are compared with a direct numpy transcription of the literature sheet's formulas
-(/work/shared/research/anchors-literature.md §1.1-1.5: Kappen & Rodriguez 1998, Tanaka 1998,
-Roudi, Aurell & Hertz 2009, Sessak & Monasson 2009, Ricci-Tersenghi 2012 / Nguyen & Berg 2012),
+Closed forms are compared with a direct numpy transcription of the published formulas
+(Kappen & Rodriguez 1998, Tanaka 1998, Roudi, Aurell & Hertz 2009, Sessak & Monasson 2009,
+Ricci-Tersenghi 2012 / Nguyen & Berg 2012),
 written here independently of the C++ code, on moments computed by numpy."""
 import json
 import math
@@ -28,7 +28,7 @@ def numpy_moments(X):
     return m, C
 
 
-def sheet_formulas(m, C):
+def published_formulas(m, C):
     n = len(m)
     Ci = np.linalg.inv(C)
     L = 1 - m ** 2
@@ -85,10 +85,10 @@ def sheet_formulas(m, C):
 
 
 @pytest.mark.parametrize("method", ["mean-field", "tap", "independent-pair", "sessak-monasson", "bethe"])
-def test_closed_forms_match_the_sheet_formulas(method):
+def test_closed_forms_match_the_published_formulas(method):
     X = sampled_data()
     m, C = numpy_moments(X)
-    J_ref, h_ref = sheet_formulas(m, C)[method]
+    J_ref, h_ref = published_formulas(m, C)[method]
     fit = spinfer.fit_closed_form(X, method)
     assert fit.convention == "spin"
     np.testing.assert_allclose(fit.couplings, J_ref, atol=1e-9)
@@ -106,7 +106,7 @@ def test_closed_forms_match_the_sheet_formulas(method):
 
 
 def test_exact_moments_of_a_tree_give_back_the_model_with_bethe():
-    # Bethe is exact on trees (sheet §1.5, §3.9): here a star with fields, through the Python API.
+    # Bethe is exact on trees: here a star with fields, through the Python API.
     n = 7
     rng = np.random.default_rng(12)
     J = np.zeros((n, n))

@@ -65,8 +65,10 @@ except ImportError:  # pragma: no cover - exercised only without scikit-learn
             raise NotFittedError(f"This {type(estimator).__name__} instance is not fitted yet; "
                                  "call 'fit' first.")
 
-    class _Density:  # noqa: D401 - placeholder mixin
-        pass
+    class _Density:
+        """What scikit-learn's DensityMixin provides: the estimator-type marker."""
+
+        _estimator_type = "DensityEstimator"
 
     class _Base:
         """get_params / set_params / repr in the scikit-learn manner (fallback)."""

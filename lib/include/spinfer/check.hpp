@@ -8,7 +8,7 @@
 //   z = (model - data) / sqrt(se_data^2 + se_model^2),
 // the fraction of |z| < 2, and the normalised error of the trade
 //   eps = sqrt(mean(z^2))
-// (in the style of Cocco & Monasson 2011/2012, literature sheet §4.6, but with the bootstrap noise
+// (in the style of Cocco & Monasson 2011/2012, but with the bootstrap noise
 // instead of the iid formula (1 - m^2)/B). eps ≈ 1 means the model fits within sampling noise;
 // eps >> 1 is a misfit; eps << 1 hints at overfitting. The independent (fields-only) model with
 // the data's means is the baseline throughout (its means are exact by construction; its

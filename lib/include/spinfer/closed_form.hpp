@@ -3,7 +3,7 @@
 // Every formula works on spin-convention moments (m_i = <s_i>, C_ij = <s_i s_j> - m_i m_j):
 // moments given in the binary convention are converted first (C^spin = 4 C^binary). The returned
 // model is in the spin convention (convert_model gives the binary twin). Formulas, from the
-// literature sheet §1.1-1.5, with x = (C^-1)_ij and L_i = 1 - m_i^2:
+// papers named beside each, with x = (C^-1)_ij and L_i = 1 - m_i^2:
 //
 //   "mean-field"        J_ij = -x                                       (Kappen & Rodriguez 1998)
 //                       h_i  = atanh m_i - sum_j J_ij m_j
@@ -16,7 +16,7 @@
 //                       h_i^(j) = 1/4 ln[p(++) p(+-) / (p(-+) p(--))]
 //   "sessak-monasson"   J_ij = -x + J_ij^IP - C_ij / (L_i L_j - C_ij^2)  (Sessak & Monasson 2009)
 //                       h_i by the TAP field rule above (our choice: the paper's own field series
-//                       is not used; sheet §1.4 shows the TAP rule is as accurate as the Bethe one)
+//                       is not used; on exact SK moments the TAP field rule was as accurate as the Bethe one)
 //   "bethe"             r = sqrt(1 + 4 L_i L_j x^2), b = r - 2 m_i m_j x,
 //                       J_ij = -atanh[(b - sqrt(b^2 - 4x^2)) / (2x)]   (Ricci-Tersenghi 2012;
 //                       h_i  = atanh m_i - sum_j atanh[t_ij f(m_j, m_i, t_ij)], Nguyen & Berg 2012)

@@ -3,7 +3,7 @@
 //
 //   E(v) = - sum_i h_i v_i - sum_{i<j} J_ij v_i v_j,    P(v) = exp(-E(v)) / Z,
 // with v in {0,1} (binary) or {-1,+1} (spin). Parameters are dimensionless (beta = 1 absorbed).
-// Exact conversion (a change of variables s = 2x - 1; see the literature sheet §5.1):
+// Exact conversion (a change of variables s = 2x - 1):
 //   spin from binary:  J_ij = W_ij / 4,  h_i = a_i / 2 + sum_{j!=i} W_ij / 4
 //   binary from spin:  W_ij = 4 J_ij,    a_i = 2 h_i - 2 sum_{j!=i} J_ij
 //   log Z_binary = log Z_spin + sum_i a_i / 2 + sum_{i<j} W_ij / 4

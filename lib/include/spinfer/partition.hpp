@@ -17,7 +17,7 @@
 // the efficiency, never the value.
 //
 //  * Annealed importance sampling (Neal, "Annealed importance sampling", Stat. Comput. 11:125,
-//    2001; literature sheet §4.4). Each run draws x_0 ~ P_0 exactly, then for k = 1..K
+//    2001). Each run draws x_0 ~ P_0 exactly, then for k = 1..K
 //    (alpha_k = k / K) adds -(alpha_k - alpha_{k-1}) (E_1 - E_0)(x) to its log weight and moves x
 //    with `ais_sweeps` sequential Gibbs sweeps that leave P_{alpha_k} invariant. Z_1 / Z_0 =
 //    E[w]; the estimate is ln Z_0 + ln mean(w) (log-mean-exp). By Jensen's inequality E[ln Zhat]
@@ -26,7 +26,7 @@
 //    unreliable when a few runs dominate: check the effective sample size of the weights,
 //    (sum w)^2 / sum w^2, reported with a warning below R / 10.
 //  * Thermodynamic integration: d ln Z_alpha / d alpha = -<E_1 - E_0>_alpha, so
-//    ln Z_1 = ln Z_0 - int_0^1 <E_1 - E_0>_alpha d alpha (sheet §4.4). The integral is a
+//    ln Z_1 = ln Z_0 - int_0^1 <E_1 - E_0>_alpha d alpha. The integral is a
 //    Gauss-Legendre rule with `ti_nodes` nodes; at each node the mean comes from the Monte Carlo
 //    sampler (sampler.hpp, automatic burn-in and thinning unless set) with a batch-means standard
 //    error. Error = sqrt(sum_k w_k^2 se_k^2) (independent nodes); the quadrature error is not
@@ -111,7 +111,7 @@ struct LikelihoodEstimate {
   LogPartitionEstimate log_partition;
 };
 
-/// Mean log-probability per sample of the data's rows: -<E>_data - ln Z (sheet §4.4). The data's
+/// Mean log-probability per sample of the data's rows: -<E>_data - ln Z. The data's
 /// bits are read as states (a row's convention does not matter). InputError if the columns differ.
 LikelihoodEstimate log_likelihood_per_sample(const IsingModel& model, const SpinMatrix& data,
                                              const PartitionOptions& options = {});
@@ -129,7 +129,7 @@ EntropyEstimate model_entropy(const IsingModel& model, const PartitionOptions& o
 
 /// S_1 = sum_i H2(p_i), p_i = P(unit i active) from `means` given in `convention`
 /// (p = m for binary, (1 + m) / 2 for spin), H2(p) = -p ln p - (1 - p) ln(1 - p). Entropy of the
-/// independent model with these means (sheet §4.1). InputError for a mean outside the range.
+/// independent model with these means. InputError for a mean outside the range.
 double independent_entropy(const Eigen::VectorXd& means, Convention convention);
 
 /// Empirical entropy of the distinct row patterns (weights count as multiplicities).
@@ -144,7 +144,7 @@ struct PatternEntropy {
 PatternEntropy pattern_entropy(const SpinMatrix& data);
 
 /// The fraction of the multi-information captured by a pairwise model (Schneidman, Berry, Segev,
-/// Bialek, Nature 440:1007, 2006; sheet §4.1): I_2 / I_N = (S_1 - S_2) / (S_1 - S_N), with S_1 the
+/// Bialek, Nature 440:1007, 2006): I_2 / I_N = (S_1 - S_2) / (S_1 - S_N), with S_1 the
 /// independent entropy at the data's means, S_2 the entropy of `model` (the pairwise model fitted
 /// to the data) and S_N the empirical pattern entropy.
 struct MultiInformation {

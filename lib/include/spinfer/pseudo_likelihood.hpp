@@ -7,7 +7,7 @@
 // is the mean log conditional likelihood of s_i given the others (Besag 1975; a logistic
 // regression of s_i on s_{\i} with coefficients 2 J_i. and intercept 2 h_i).
 //
-// Two variants (literature sheet §1.6):
+// Two variants (Besag 1975; Aurell & Ekeberg 2012):
 //   per-variable (default): for each i, minimise -l_i + l2 sum_j J_ij^2 + l1 sum_j |J_ij| over
 //     (h_i, J_i.) independently, then average the two estimates of each pair:
 //     J_ij = (J_ij^(i) + J_ji^(j)) / 2.

@@ -1,6 +1,6 @@
 // Moment-matching refinement of a model (Boltzmann learning): fields and couplings are moved along
 // the gradient of the mean log-likelihood until the model reproduces the data's means and pair
-// correlations within their sampling noise (literature sheet §1.8, §4.6).
+// correlations within their sampling noise (Ackley, Hinton & Sejnowski 1985, from memory; stopping rule in the style of Cocco & Monasson 2011).
 //
 // Everything is done in the spin convention (s in {-1,+1}); the result is returned in the start
 // model's convention. With data means m_i^D = <s_i>_D and raw correlations c_ij^D = <s_i s_j>_D,
@@ -25,7 +25,7 @@
 //              they stay near equilibrium while the parameters move slowly.
 //   "auto"     exact when N <= 16, else sampled.
 //
-// Sampled steps (our choice, stated because the literature gives only the idea, sheet §1.8): an
+// Sampled steps (our choice, stated because the literature gives only the idea: Ferrari, PRE 94, 023301, 2016): an
 // approximate natural gradient, theta += rate * M^-1 grad, with a preconditioner M built from the
 // data alone (Ferrari, PRE 94, 023301, 2016: the data covariance chi_D of the sufficient
 // statistics f = (s_i, s_i s_j) is the Fisher matrix at the maximum for a well-specified model).
@@ -58,7 +58,7 @@
 //   iteration's, the learning rate is halved and the momentum cleared; when the error has not
 //   improved by 10% for `patience` iterations, the learning rate is halved.
 //
-// Errors against the data (sheet §4.6): with sigma the data's sampling noise of each statistic,
+// Errors against the data (in the style of Cocco & Monasson 2011): with sigma the data's sampling noise of each statistic,
 //   epsilon_m = sqrt(mean_i ((m_i^model - m_i^D) / sigma(m_i))^2),
 //   epsilon_c = the same over the pairs i<j for c_ij = <s_i s_j>,
 //   z = (model - data) / sigma for every statistic (max |z| reported).

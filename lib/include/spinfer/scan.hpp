@@ -1,6 +1,6 @@
 // Temperature scan of a model: mean energy and specific heat C(T) = Var(E) / (N T^2) for
-// P_T(v) ∝ exp(-E(v) / T) over a grid of T, with the location of the C(T) peak (literature sheet
-// §4.3). Exact by enumeration for small models; Monte Carlo (optionally one parallel-tempering
+// P_T(v) ∝ exp(-E(v) / T) over a grid of T, with the location of the C(T) peak (as in
+// Tkacik et al., PNAS 112:11508, 2015). Exact by enumeration for small models; Monte Carlo (optionally one parallel-tempering
 // run across the whole ladder) beyond.
 #pragma once
 

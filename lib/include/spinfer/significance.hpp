@@ -7,7 +7,7 @@
 //    at random into two groups and the second group is rotated in time as a block by a random
 //    offset (at least one block length from zero). Every unit keeps its rate and autocorrelation,
 //    each group keeps its internal structure, and all synchrony between the groups is destroyed;
-//    the whole model is refitted on each surrogate (literature sheet §4.5), and the |J| of the
+//    the whole model is refitted on each surrogate (circular-shift surrogates: common practice), and the |J| of the
 //    pairs split across the groups are the null values. Keeping the groups' own structure
 //    matters: shifting every unit separately removes all couplings, which shrinks the
 //    estimator's noise (for mean-field, the variance of J_ij grows with (C^-1)_ii (C^-1)_jj) and

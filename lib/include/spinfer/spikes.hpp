@@ -1,6 +1,6 @@
 // Spike-event tables and their binning into a binary matrix (time bins x units).
 //
-// Binning rule (anchors-ecosystem.md §5): bins are half-open [t0 + k w, t0 + (k+1) w) with
+// Binning rule: bins are half-open [t0 + k w, t0 + (k+1) w) with
 // t0 = start; only bins lying fully inside [start, stop) and overlapping no gap are kept
 // (gap bins are DROPPED, not zero-filled, which would create correlated silence). A unit is
 // active (1) in a bin holding at least one of its spikes.
