@@ -21,18 +21,6 @@ struct FitArgs {
   double tolerance = 1e-5;
 };
 
-std::optional<double> penalty_arg(const std::string& text, const char* name) {
-  if (text.empty()) return std::nullopt;
-  if (text == "auto") return kAutomaticPenalty;
-  try {
-    std::size_t used = 0;
-    const double v = std::stod(text, &used);
-    if (used == text.size() && v >= 0) return v;
-  } catch (const std::exception&) {
-  }
-  throw InputError(std::string(name) + " '" + text + "': expected a number >= 0 or 'auto'");
-}
-
 int run_fit(const Context& ctx, const FitArgs& a) {
   if (ctx.common.out.empty()) throw InputError("--out is required");
   check_output_path(ctx.common.out, ctx.common.force);
@@ -52,8 +40,8 @@ int run_fit(const Context& ctx, const FitArgs& a) {
   if ((o.symmetric && a.method != "pseudo-likelihood" && a.method != "screening") ||
       (o.logarithmic && a.method != "screening"))
     throw InputError("--variant " + a.variant + " does not apply to method " + a.method);
-  o.l1 = penalty_arg(a.l1, "--l1");
-  o.l2 = penalty_arg(a.l2, "--l2");
+  o.l1 = parse_penalty(a.l1, "--l1");
+  o.l2 = parse_penalty(a.l2, "--l2");
   o.shrinkage = a.shrinkage;
   o.mean_field_fallback = a.fallback;
   o.max_iterations = a.max_iterations;

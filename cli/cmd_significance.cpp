@@ -23,18 +23,6 @@ struct SignificanceArgs {
   double confidence = 0.95, fdr = 0.05;
 };
 
-std::optional<double> penalty(const std::string& t) {
-  if (t.empty()) return std::nullopt;
-  if (t == "auto") return kAutomaticPenalty;
-  try {
-    std::size_t used = 0;
-    const double v = std::stod(t, &used);
-    if (used == t.size() && v >= 0) return v;
-  } catch (const std::exception&) {
-  }
-  throw InputError("penalty '" + t + "': expected a number >= 0 or 'auto'");
-}
-
 std::string csv_field(const std::string& s) {
   if (s.find_first_of(",\"\n") == std::string::npos) return s;
   std::string q = "\"";
@@ -51,8 +39,8 @@ int run_significance(const Context& ctx, const SignificanceArgs& a) {
   const SpinMatrix data = read_matrix(a.data, ro);
   FitOptions fo;
   fo.method = a.method;
-  fo.l1 = penalty(a.l1);
-  fo.l2 = penalty(a.l2);
+  fo.l1 = parse_penalty(a.l1, "--l1");
+  fo.l2 = parse_penalty(a.l2, "--l2");
   fo.threads = ctx.common.threads;
   // The held-out penalty is chosen once on the full data and reused by every refit.
   if (fo.l2.value_or(0) == kAutomaticPenalty || fo.l1.value_or(0) == kAutomaticPenalty ||

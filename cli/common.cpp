@@ -12,6 +12,7 @@
 #include <nlohmann/json.hpp>
 
 #include "spinfer/errors.hpp"
+#include "spinfer/fit.hpp"
 #include "spinfer/version.hpp"
 
 namespace spinfer::cli {
@@ -81,6 +82,18 @@ nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string
   for (const auto& f : inputs) files.push_back({{"path", f}, {"fnv1a64", file_checksum(f)}});
   return {{"command_line", ctx.argv}, {"version", spinfer::version()}, {"seed", ctx.common.seed},
           {"threads", ctx.common.threads}, {"inputs", files}};
+}
+
+std::optional<double> parse_penalty(const std::string& text, const std::string& option) {
+  if (text.empty()) return std::nullopt;
+  if (text == "auto") return kAutomaticPenalty;
+  try {
+    std::size_t used = 0;
+    const double v = std::stod(text, &used);
+    if (used == text.size() && v >= 0) return v;
+  } catch (const std::exception&) {
+  }
+  throw InputError(option + " '" + text + "': expected a number >= 0 or 'auto'");
 }
 
 void check_output_path(const std::string& path, bool force) {

@@ -2,6 +2,7 @@
 #pragma once
 
 #include <functional>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -55,6 +56,10 @@ nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string
 
 /// 64-bit FNV-1a checksum of a file's bytes, as 16 hex digits (throws FileError if unreadable).
 std::string file_checksum(const std::string& path);
+
+/// A penalty option: empty -> unset (the method's default), "auto" -> chosen on held-out data,
+/// else a number >= 0 (InputError otherwise, naming the option).
+std::optional<double> parse_penalty(const std::string& text, const std::string& option);
 
 /// Refuse to overwrite an existing output unless --force (throws spinfer::FileError).
 void check_output_path(const std::string& path, bool force);

@@ -214,15 +214,9 @@ CheckResult check_model(const IsingModel& model, const SpinMatrix& data, const C
                     Eigen::VectorXd::Zero(d.triplets.size()));
   r.active_counts = make("active_counts", d.counts, noise.count_se, m.counts, mse.counts, poisson_binomial(p));
 
-  // Log-likelihood per sample: exact for the pairwise model when enumerable; always exact for
-  // the independent model: mean_t sum_i [x log p + (1 - x) log(1 - p)].
-  double li = 0;
-  for (std::int64_t i = 0; i < N; ++i) {
-    const double pi = p(i);
-    if (pi > 0) li += pi * std::log(pi);
-    if (pi < 1) li += (1 - pi) * std::log(1 - pi);
-  }
-  r.log_likelihood_independent = li;
+  // Log-likelihood per sample of the independent model (exact).
+  // The independent model fitted to these means has mean log-likelihood -S_1 on the same data.
+  r.log_likelihood_independent = -independent_entropy(d.means, conv);
   r.log_likelihood = std::numeric_limits<double>::quiet_NaN();
   if (options.likelihood) {
     PartitionOptions po;

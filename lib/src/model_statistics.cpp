@@ -7,6 +7,7 @@
 #include "sampler_engine.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/rng.hpp"
+#include "spinfer/scan.hpp"
 #include "spinfer/stats.hpp"
 
 namespace spinfer {
@@ -212,19 +213,7 @@ TemperatureScan temperature_scan(const IsingModel& model, const std::vector<doub
     }
   }
 
-  // Peak of C(T): the grid maximum, refined by the vertex of the parabola through its neighbours.
-  const auto& c = scan.specific_heat;
-  const std::size_t i = std::size_t(std::max_element(c.begin(), c.end()) - c.begin());
-  scan.peak_index = std::int64_t(i);
-  scan.peak_temperature = ladder[i];
-  scan.peak_at_edge = i == 0 || i + 1 == ladder.size();
-  if (!scan.peak_at_edge) {
-    const double x0 = ladder[i - 1], x1 = ladder[i], x2 = ladder[i + 1];
-    const double y0 = c[i - 1], y1 = c[i], y2 = c[i + 1];
-    const double num = (x1 - x0) * (x1 - x0) * (y1 - y2) - (x1 - x2) * (x1 - x2) * (y1 - y0);
-    const double den = (x1 - x0) * (y1 - y2) - (x1 - x2) * (y1 - y0);
-    if (den != 0) scan.peak_temperature = std::clamp(x1 - 0.5 * num / den, x0, x2);
-  }
+  locate_specific_heat_peak(scan);
   return scan;
 }
 

@@ -8,16 +8,19 @@
 
 namespace spinfer {
 
-double refine_peak(const std::vector<double>& x, const std::vector<double>& y, std::size_t k) {
-  if (k == 0 || k + 1 >= x.size()) return x[k];
-  // Lagrange parabola through (x0,y0), (x1,y1), (x2,y2); vertex where its derivative vanishes.
-  const double x0 = x[k - 1], x1 = x[k], x2 = x[k + 1];
-  const double y0 = y[k - 1], y1 = y[k], y2 = y[k + 1];
-  const double d0 = (x0 - x1) * (x0 - x2), d1 = (x1 - x0) * (x1 - x2), d2 = (x2 - x0) * (x2 - x1);
-  const double a = y0 / d0 + y1 / d1 + y2 / d2;
-  const double b = -(y0 * (x1 + x2) / d0 + y1 * (x0 + x2) / d1 + y2 * (x0 + x1) / d2);
-  if (!(a < 0)) return x1;  // not a maximum: keep the grid point
-  return std::clamp(-b / (2 * a), x0, x2);
+void locate_specific_heat_peak(TemperatureScan& scan) {
+  const auto& x = scan.temperatures;
+  const auto& c = scan.specific_heat;
+  const std::size_t i = std::size_t(std::max_element(c.begin(), c.end()) - c.begin());
+  scan.peak_index = std::int64_t(i);
+  scan.peak_temperature = x[i];
+  scan.peak_at_edge = i == 0 || i + 1 == x.size();
+  if (scan.peak_at_edge) return;
+  const double x0 = x[i - 1], x1 = x[i], x2 = x[i + 1];
+  const double y0 = c[i - 1], y1 = c[i], y2 = c[i + 1];
+  const double num = (x1 - x0) * (x1 - x0) * (y1 - y2) - (x1 - x2) * (x1 - x2) * (y1 - y0);
+  const double den = (x1 - x0) * (y1 - y2) - (x1 - x2) * (y1 - y0);
+  if (den != 0) scan.peak_temperature = std::clamp(x1 - 0.5 * num / den, x0, x2);
 }
 
 TemperatureScan scan_temperatures(const IsingModel& model, std::vector<double> temperatures,
@@ -46,10 +49,7 @@ TemperatureScan scan_temperatures(const IsingModel& model, std::vector<double> t
     s.specific_heat.push_back(e.specific_heat);
     s.specific_heat_error.push_back(0.0);
   }
-  const auto it = std::max_element(s.specific_heat.begin(), s.specific_heat.end());
-  s.peak_index = it - s.specific_heat.begin();
-  s.peak_at_edge = s.peak_index == 0 || s.peak_index + 1 == std::int64_t(temperatures.size());
-  s.peak_temperature = refine_peak(s.temperatures, s.specific_heat, std::size_t(s.peak_index));
+  locate_specific_heat_peak(s);
   return s;
 }
 

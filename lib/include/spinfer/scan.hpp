@@ -23,8 +23,9 @@ struct ScanOptions {
 TemperatureScan scan_temperatures(const IsingModel& model, std::vector<double> temperatures,
                                   const ScanOptions& options, std::string* method_used = nullptr);
 
-/// Vertex of the parabola through three equally or unequally spaced points around a maximum at
-/// index k (0 < k < n-1); the grid value itself at an edge.
-double refine_peak(const std::vector<double>& x, const std::vector<double>& y, std::size_t k);
+/// Sets peak_index, peak_at_edge and peak_temperature of a filled scan: the grid maximum of C(T),
+/// refined by the vertex of the parabola through it and its two neighbours (the grid value at an
+/// edge of the grid).
+void locate_specific_heat_peak(TemperatureScan& scan);
 
 }  // namespace spinfer
