@@ -60,6 +60,7 @@ from .fitting import (  # noqa: E402
 )
 from .refinement import refine  # noqa: E402
 from .estimator import PairwiseNetwork  # noqa: E402
+from .readers import read_nwb_units, bin_nwb_units, read_h5ad_binary  # noqa: E402
 
 
 def build_info() -> str:
@@ -126,4 +127,7 @@ __all__ = [
     "pseudo_log_likelihood",
     "refine",
     "PairwiseNetwork",
+    "read_nwb_units",
+    "bin_nwb_units",
+    "read_h5ad_binary",
 ]
