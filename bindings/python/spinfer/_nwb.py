@@ -105,8 +105,9 @@ def read_nwb_units(path, *, name_column: Optional[str] = None,
             bad = np.flatnonzero(iv[:, 1] < iv[:, 0])
             if bad.size:
                 r = int(bad[0])
+                a_s, b_s = float(iv[r, 0]), float(iv[r, 1])
                 raise ValueError(where(iv_ds.name, f"row {r + 1} (unit {names[unit_of_row[r]]!r}) "
-                                       f"ends at {float(iv[r, 1])!r} s before it starts at {float(iv[r, 0])!r} s"))
+                                       f"ends at {b_s!r} s before it starts at {a_s!r} s"))
             intervals = [iv[b[k]:e[k]] for k in range(n)]
 
     b, e = segments(idx)
