@@ -4,22 +4,68 @@
 #include <nlohmann/json.hpp>
 
 #include "commands.hpp"
+#include "shards.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/fit.hpp"
 #include "spinfer/io.hpp"
 #include "spinfer/model_io.hpp"
+#include "spinfer/unit_fits.hpp"
+#include "spinfer/version.hpp"
 
 namespace spinfer::cli {
 namespace {
 
 struct FitArgs {
   std::string data, method = "pseudo-likelihood", convention, member, output_convention, l1, l2;
-  std::string variant;
+  std::string variant, shard;
   double shrinkage = 0;
-  bool fallback = false, drop_constant = false;
+  bool fallback = false, drop_constant = false, shard_from_slurm = false;
   int max_iterations = 1000;
   double tolerance = 1e-5;
 };
+
+// Everything that must agree between the shards of one fit (checked by `spinfer merge`).
+nlohmann::json shard_manifest(const Context& ctx, const FitArgs& a, const SpinMatrix& data,
+                              ShardChoice shard) {
+  return {{"input", {{"path", a.data}, {"fnv1a64", file_checksum(a.data)}}},
+          {"settings",
+           {{"method", a.method}, {"variant", a.variant.empty() ? "per-variable" : a.variant},
+            {"l1", a.l1}, {"l2", a.l2}, {"convention", a.convention}, {"member", a.member},
+            {"model_convention", a.output_convention}, {"drop_constant", a.drop_constant},
+            {"max_iterations", a.max_iterations}, {"tolerance", a.tolerance},
+            {"data_convention", to_string(data.convention())}}},
+          {"shard", shard.index},
+          {"shards", shard.count},
+          {"samples", data.rows()},
+          {"units", data.cols()},
+          {"version", version()},
+          {"command", provenance_json(ctx, {a.data})}};
+}
+
+int run_fit_shard(const Context& ctx, const FitArgs& a, const SpinMatrix& data,
+                  const FitOptions& o, ShardChoice shard) {
+  const std::vector<std::int64_t> units = shard_units(data.cols(), shard.index - 1, shard.count);
+  log_info(ctx, "fit", "shard " + std::to_string(shard.index) + "/" + std::to_string(shard.count) +
+                           ": fitting units " + std::to_string(units.front() + 1) + ".." +
+                           std::to_string(units.back() + 1) + " of " + std::to_string(data.cols()) +
+                           " (" + std::to_string(data.rows()) + " samples) with " + a.method);
+  ShardFile file;
+  file.fits = fit_model_units(data, o, units);
+  file.manifest = shard_manifest(ctx, a, data, shard);
+  write_shard_file(ctx.common.out, file);
+  const Provenance& p = file.fits.provenance;
+  log_info(ctx, "written", "shard -> " + ctx.common.out + " (merge all " +
+                               std::to_string(shard.count) + " with `spinfer merge`)");
+  if (!file.fits.unconverged.empty())
+    log_info(ctx, "warning", "warning: " + std::to_string(file.fits.unconverged.size()) +
+                                 " units did not converge; raise --max-iterations");
+  print_summary(nlohmann::json{{"command", "fit"}, {"data", a.data}, {"output", ctx.common.out},
+                               {"method", a.method}, {"shard", shard.index}, {"shards", shard.count},
+                               {"units_fitted", units.size()}, {"samples", data.rows()},
+                               {"units", data.cols()}, {"l1", p.l1}, {"l2", p.l2},
+                               {"converged", file.fits.unconverged.empty()}}.dump());
+  return kOk;
+}
 
 int run_fit(const Context& ctx, const FitArgs& a) {
   if (ctx.common.out.empty()) throw InputError("--out is required");
@@ -49,6 +95,10 @@ int run_fit(const Context& ctx, const FitArgs& a) {
   o.threads = ctx.common.threads;
   if (!a.output_convention.empty()) o.convention = parse_convention(a.output_convention);
   o.progress = progress_logger(ctx, a.method);
+  if (!a.shard.empty() && a.shard_from_slurm)
+    throw InputError("--shard and --shard-from-slurm exclude each other");
+  if (!a.shard.empty() || a.shard_from_slurm)
+    return run_fit_shard(ctx, a, data, o, a.shard_from_slurm ? shard_from_slurm() : parse_shard(a.shard));
   log_info(ctx, "fit", "fitting " + std::to_string(data.rows()) + " samples x " +
                            std::to_string(data.cols()) + " units with " + a.method);
   IsingModel model = fit_model(data, o);
@@ -94,6 +144,11 @@ void add_fit_command(CLI::App& app, Context& ctx) {
       ->check(CLI::IsMember({"binary", "spin"}));
   sub->add_option("--member", args->member, "Array to read from an .npz archive");
   sub->add_flag("--drop-constant", args->drop_constant, "Drop units that are never or always active");
+  sub->add_option("--shard", args->shard,
+                  "Fit only shard K/N of the per-variable problems (e.g. 3/10); --out gets a shard "
+                  "file for `spinfer merge`");
+  sub->add_flag("--shard-from-slurm", args->shard_from_slurm,
+                "Take K/N from SLURM_ARRAY_TASK_ID (- SLURM_ARRAY_TASK_MIN + 1) and SLURM_ARRAY_TASK_COUNT");
   sub->add_option("--max-iterations", args->max_iterations, "Iteration budget")->check(CLI::PositiveNumber);
   sub->add_option("--tolerance", args->tolerance, "Largest per-sample gradient entry at convergence")
       ->check(CLI::PositiveNumber);
@@ -102,7 +157,12 @@ void add_fit_command(CLI::App& app, Context& ctx) {
       "Penalties are per sample (the objectives are averages over samples). Without --l2/--l1,\n"
       "pseudo-likelihood chooses l2 and screening chooses l1 on held-out data (the last 20% of\n"
       "the rows, a contiguous block). The model file is JSON (format spinfer-model; see README).\n\n"
-      "Example:\n  spinfer fit recording.npz --method pseudo-likelihood --out model.json\n");
+      "Shards: per-variable pseudo-likelihood and screening are N independent problems; --shard K/N\n"
+      "fits units [(K-1)N_units/N, K N_units/N) and writes a shard file; `spinfer merge` checks the\n"
+      "shards (same input checksum and settings, all K present once) and writes the model, equal\n"
+      "to the unsharded fit. Automatic penalties are chosen identically in every shard.\n\n"
+      "Examples:\n  spinfer fit recording.npz --method pseudo-likelihood --out model.json\n"
+      "  spinfer fit recording.npz --l2 1e-4 --shard 2/8 --out part-2.json\n");
   sub->callback([&ctx, args] { ctx.run = [&ctx, args] { return run_fit(ctx, *args); }; });
 }
 

@@ -19,5 +19,6 @@ void add_scan_command(CLI::App& app, Context& ctx);
 void add_report_command(CLI::App& app, Context& ctx);
 void add_refine_command(CLI::App& app, Context& ctx);
 void add_significance_command(CLI::App& app, Context& ctx);
+void add_merge_command(CLI::App& app, Context& ctx);
 
 }  // namespace spinfer::cli

@@ -24,6 +24,7 @@ int main(int argc, char** argv) {
   add_scan_command(app, ctx);
   add_refine_command(app, ctx);
   add_significance_command(app, ctx);
+  add_merge_command(app, ctx);
   add_report_command(app, ctx);
 
   try {

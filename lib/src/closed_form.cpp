@@ -157,8 +157,11 @@ double independent_pair(const Prepared& p, Eigen::Index i, Eigen::Index j, doubl
   const double pm = 0.25 * (1 + mi - mj - cij), mp = 0.25 * (1 - mi + mj - cij);
   const char* names[] = {"(+,+)", "(-,-)", "(+,-)", "(-,+)"};
   const double cells[] = {pp, mm, pm, mp};
+  // A cell at rounding level of 1 (e.g. a duplicated unit, where C_ij + m_i m_j = 1 up to the
+  // last bit) is empty: no recording can resolve probabilities below 1e-12.
+  constexpr double kEmptyCell = 1e-12;
   for (int c = 0; c < 4; ++c)
-    if (!(cells[c] > 0))
+    if (!(cells[c] > kEmptyCell))
       throw NumericalError(p.method + ": " + pair(i, j) + ": the pair never takes the state " +
                            names[c] + " (empty cell of its 2x2 table, p = " + num(cells[c]) +
                            "), so the coupling is infinite; set shrinkage > 0 or use another "

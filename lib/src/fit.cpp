@@ -22,6 +22,7 @@ void copy_iterative_options(const FitOptions& o, Options& out) {
   out.warm_start = o.warm_start;
   out.progress = o.progress;
   out.representation = o.representation;
+  out.checkpoint = o.checkpoint;
 }
 
 }  // namespace

@@ -193,17 +193,24 @@ MatrixXd LocalFields::second_moments() const {
 
 void LocalFields::evaluate(LocalLoss loss, const MatrixXd& theta, const VectorXd& h,
                            bool gradient, VectorXd& loss_sums, MatrixXd& grad,
-                           VectorXd& grad_h) const {
-  loss_sums.setZero(N_);
+                           VectorXd& grad_h, const std::vector<char>* wanted) const {
+  if (loss_sums.size() != N_) loss_sums.setZero(N_);
   if (gradient) {
-    grad.setZero(N_, N_);
-    grad_h.setZero(N_);
+    if (grad.rows() != N_ || grad.cols() != N_) grad.setZero(N_, N_);
+    if (grad_h.size() != N_) grad_h.setZero(N_);
   }
   const std::int64_t chunk = chunk_size(N_, prep_->sparse_kernel());
   const std::int64_t chunks = (N_ + chunk - 1) / chunk;
+  std::vector<std::int64_t> todo;
+  for (std::int64_t c = 0; c < chunks; ++c) {
+    const std::int64_t i0 = c * chunk, i1 = std::min(N_, i0 + chunk);
+    bool any = wanted == nullptr;
+    for (std::int64_t i = i0; i < i1 && !any; ++i) any = (*wanted)[std::size_t(i)] != 0;
+    if (any) todo.push_back(c);
+  }
   SingleThreadedBlas single;
-  parallel_for(chunks, threads_, [&](std::int64_t c) {
-    const std::int64_t i0 = c * chunk, nc = std::min(chunk, N_ - i0);
+  parallel_for(std::int64_t(todo.size()), threads_, [&](std::int64_t k) {
+    const std::int64_t i0 = todo[std::size_t(k)] * chunk, nc = std::min(chunk, N_ - i0);
     evaluate_chunk(loss, theta, h, gradient, i0, nc, loss_sums, grad, grad_h);
   });
   if (gradient) grad.diagonal().setZero();

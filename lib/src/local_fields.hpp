@@ -74,9 +74,13 @@ class LocalFields {
   const PreparedData& prepared() const { return *prep_; }
 
   /// Evaluates loss sums (N) and, if `gradient`, grad (N x N, diagonal set to 0) and grad_h (N).
+  /// With `wanted` (N flags), only the fixed unit chunks holding a wanted unit are computed and
+  /// the other entries are left as they were. Unit i's entries depend only on column i of theta,
+  /// h_i and the chunk layout (a function of N), never on other columns or on `wanted`: the
+  /// per-unit optimiser relies on this to give any subset of units the same iterates.
   void evaluate(LocalLoss loss, const Eigen::MatrixXd& theta, const Eigen::VectorXd& h,
                 bool gradient, Eigen::VectorXd& loss_sums, Eigen::MatrixXd& grad,
-                Eigen::VectorXd& grad_h) const;
+                Eigen::VectorXd& grad_h, const std::vector<char>* wanted = nullptr) const;
 
   /// Weighted means of s (N), for initial fields.
   Eigen::VectorXd spin_means() const;

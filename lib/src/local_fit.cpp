@@ -1,6 +1,6 @@
 #include "local_fit.hpp"
 
-#include <lbfgs.h>
+#include "lockstep_lbfgs.hpp"
 
 #include <algorithm>
 #include <chrono>
@@ -21,189 +21,206 @@ using Eigen::Index;
 using Eigen::MatrixXd;
 using Eigen::VectorXd;
 
-// Parameter layout for liblbfgs (penalised couplings first, so OWL-QN's range is contiguous):
-//   per-variable: [Theta (N x N, column-major, column i = couplings into unit i; diagonal kept
-//                  at 0 with zero gradient), h (N)]
-//   symmetric:    [J_ij for i < j packed row by row, h (N)]
-class Problem {
+// The pseudo-likelihood / screening objectives as lock-step problems (lockstep_lbfgs.hpp).
+//   per-variable: one problem per fitted unit i, parameters p_i = (Theta_{-i,i}, h_i) (N
+//                 entries: the couplings into i in index order without i, then the field);
+//                 the couplings carry the L1 term.
+//   symmetric:    a single problem, [J_ij for i < j packed row by row, h (N)].
+// Objectives are per-sample (divided by the total weight W) and the per-unit values are
+//   value_i = loss_i / W            (pseudo-likelihood, RISE)
+//   value_i = log(loss_i / W)       (log-RISE)
+// plus l2 sum_j Theta_ji^2 per unit (symmetric: l2 ||J||_F^2, each pair counted twice).
+class Objectives {
  public:
-  Problem(const LocalFields& fields, const LocalFitSettings& s)
-      : f_(fields), s_(s), N_(fields.units()), W_(fields.total_weight()) {
-    pairs_ = N_ * (N_ - 1) / 2;
-    couplings_ = s.symmetric ? pairs_ : N_ * N_;
+  Objectives(const LocalFields& fields, const LocalFitSettings& s, std::vector<Index> units)
+      : f_(fields), s_(s), N_(fields.units()), W_(fields.total_weight()), units_(std::move(units)) {
     theta_.setZero(N_, N_);
     h_.setZero(N_);
+    factors_.resize(std::size_t(N_));
     if (!s.symmetric && s.l1 == 0 && s.loss == LocalLoss::pseudo_likelihood &&
         N_ <= kWhitenMaxUnits)
       build_whitening();
   }
 
-  bool whitened() const { return !factors_.empty(); }
-
-  Index size() const { return couplings_ + N_; }
-  Index coupling_count() const { return couplings_; }
-  // OWL-QN constant: the symmetric objective carries each pair's penalty twice.
-  double owlqn_c() const { return s_.symmetric ? 2.0 * s_.l1 : s_.l1; }
-
-  void pack(const VectorXd& h, const MatrixXd& theta, double* x) const {
+  std::vector<LockstepProblem> problems() const {
     if (s_.symmetric) {
+      const Index pairs = N_ * (N_ - 1) / 2;
+      return {LockstepProblem{pairs + N_, pairs, 2.0 * s_.l1}};  // each pair's penalty twice
+    }
+    std::vector<LockstepProblem> out;
+    for (std::size_t k = 0; k < units_.size(); ++k) out.push_back({N_, N_ - 1, s_.l1});
+    return out;
+  }
+
+  // Starting points from (h, Theta) in the spin convention (Theta: column i = into unit i).
+  std::vector<VectorXd> pack(const VectorXd& h, const MatrixXd& theta) const {
+    if (s_.symmetric) {
+      const Index pairs = N_ * (N_ - 1) / 2;
+      VectorXd x(pairs + N_);
       Index k = 0;
       for (Index i = 0; i < N_; ++i)
-        for (Index j = i + 1; j < N_; ++j) x[k++] = 0.5 * (theta(i, j) + theta(j, i));
-    } else if (whitened()) {
-      // v_i = L_i^T p_i with p_i = (Theta_{-i,i}, h_i).
-      parallel_for(N_, f_.threads(), [&](Index i) {
-        VectorXd p(N_);
-        for (Index k = 0; k < N_ - 1; ++k) p(k) = theta(k < i ? k : k + 1, i);
-        p(N_ - 1) = h(i);
-        Eigen::Map<VectorXd>(x + i * N_, N_) =
-            factors_[std::size_t(i)].triangularView<Eigen::Lower>().transpose() * p;
-      });
-      return;
-    } else {
-      Eigen::Map<MatrixXd>(x, N_, N_) = theta;
-      for (Index i = 0; i < N_; ++i) x[i * N_ + i] = 0.0;
+        for (Index j = i + 1; j < N_; ++j) x(k++) = 0.5 * (theta(i, j) + theta(j, i));
+      x.tail(N_) = h;
+      return {x};
     }
-    Eigen::Map<VectorXd>(x + couplings_, N_) = h;
+    std::vector<VectorXd> xs(units_.size());
+    parallel_for(Index(units_.size()), f_.threads(), [&](Index k) {
+      const Index i = units_[std::size_t(k)];
+      VectorXd p(N_);
+      for (Index a = 0; a < N_ - 1; ++a) p(a) = theta(a < i ? a : a + 1, i);
+      p(N_ - 1) = h(i);
+      const MatrixXd& L = factors_[std::size_t(i)];
+      xs[std::size_t(k)] = L.size() ? VectorXd(L.triangularView<Eigen::Lower>().transpose() * p) : p;
+    });
+    return xs;
   }
 
-  void unpack(const double* x) {
+  // Writes problem k's parameters into theta_ / h_.
+  void unpack(Index k, const VectorXd& x) {
     if (s_.symmetric) {
-      Index k = 0;
+      Index q = 0;
       for (Index i = 0; i < N_; ++i) {
         theta_(i, i) = 0.0;
-        for (Index j = i + 1; j < N_; ++j) theta_(i, j) = theta_(j, i) = x[k++];
+        for (Index j = i + 1; j < N_; ++j) theta_(i, j) = theta_(j, i) = x(q++);
       }
-    } else if (whitened()) {
-      // p_i = L_i^{-T} v_i.
-      parallel_for(N_, f_.threads(), [&](Index i) {
-        VectorXd p = Eigen::Map<const VectorXd>(x + i * N_, N_);
-        factors_[std::size_t(i)].triangularView<Eigen::Lower>().transpose().solveInPlace(p);
-        for (Index k = 0; k < N_ - 1; ++k) theta_(k < i ? k : k + 1, i) = p(k);
-        theta_(i, i) = 0.0;
-        h_(i) = p(N_ - 1);
-      });
+      h_ = x.tail(N_);
       return;
-    } else {
-      theta_ = Eigen::Map<const MatrixXd>(x, N_, N_);
-      theta_.diagonal().setZero();
     }
-    h_ = Eigen::Map<const VectorXd>(x + couplings_, N_);
+    const Index i = units_[std::size_t(k)];
+    const MatrixXd& L = factors_[std::size_t(i)];
+    VectorXd p = x;
+    if (L.size()) L.triangularView<Eigen::Lower>().transpose().solveInPlace(p);  // p = L^-T v
+    for (Index a = 0; a < N_ - 1; ++a) theta_(a < i ? a : a + 1, i) = p(a);
+    theta_(i, i) = 0.0;
+    h_(i) = p(N_ - 1);
   }
 
-  // The model parameters (spin convention) at x.
-  void solution(const double* x, VectorXd& h, MatrixXd& theta) {
-    unpack(x);
+  void evaluate(const std::vector<std::int64_t>& which, const std::vector<VectorXd>& x,
+                std::vector<double>& f, std::vector<VectorXd>& g, std::vector<double>& residual) {
+    if (s_.symmetric) {
+      unpack(0, x[0]);
+      f_.evaluate(s_.loss, theta_, h_, true, loss_, grad_, grad_h_);
+      evaluate_symmetric(x[0], f[0], g[0], residual[0]);
+      return;
+    }
+    std::vector<char> wanted(std::size_t(N_), 0);
+    for (std::int64_t k : which) wanted[std::size_t(units_[std::size_t(k)])] = 1;
+    parallel_for(Index(which.size()), f_.threads(), [&](Index w) {
+      const std::int64_t k = which[std::size_t(w)];
+      unpack(k, x[std::size_t(k)]);
+    });
+    f_.evaluate(s_.loss, theta_, h_, true, loss_, grad_, grad_h_, &wanted);
+    parallel_for(Index(which.size()), f_.threads(), [&](Index w) {
+      const std::int64_t k = which[std::size_t(w)];
+      evaluate_unit(k, x[std::size_t(k)], f[std::size_t(k)], g[std::size_t(k)],
+                    residual[std::size_t(k)]);
+    });
+  }
+
+  // (h, Theta) of the problems' current points (fitted units only for per-variable).
+  void solution(const std::vector<LockstepState>& states, VectorXd& h, MatrixXd& theta) {
+    for (std::size_t k = 0; k < states.size(); ++k) unpack(Index(k), states[k].x);
     h = h_;
     theta = theta_;
   }
 
-  // Smooth part of the objective (everything but L1) and its gradient.
-  double evaluate(const double* x, double* g) {
-    ++evaluations;
-    unpack(x);
-    f_.evaluate(s_.loss, theta_, h_, true, loss_, grad_, grad_h_);
-    if (!loss_.allFinite() || !grad_.allFinite())
-      throw NumericalError(s_.stage + ": the objective is not finite (parameters diverged); "
-                           "increase the penalty");
-    // Per-unit objective and gradient scale: (1/W) for the mean, 1/S_i for log-RISE.
-    VectorXd scale(N_), value(N_);
-    for (Index i = 0; i < N_; ++i) {
-      const double mean = loss_(i) / W_;
-      if (s_.logarithmic) {
-        value(i) = std::log(mean);
-        scale(i) = 1.0 / loss_(i);
-      } else {
-        value(i) = mean;
-        scale(i) = 1.0 / W_;
+  // Per-unit optimality residuals of the symmetric problem at its current point.
+  VectorXd symmetric_unit_residuals(const VectorXd& x, const VectorXd& g) const {
+    VectorXd res = g.tail(N_).cwiseAbs();
+    Index k = 0;
+    for (Index i = 0; i < N_; ++i)
+      for (Index j = i + 1; j < N_; ++j, ++k) {
+        const double v = subgradient(x(k), g(k), 2.0 * s_.l1);
+        res(i) = std::max(res(i), v);
+        res(j) = std::max(res(j), v);
       }
-    }
-    grad_ = grad_ * scale.asDiagonal();  // column i belongs to unit i
-    grad_h_ = grad_h_.cwiseProduct(scale);
-    double fx = value.sum() + s_.l2 * theta_.squaredNorm();
-    if (s_.symmetric) {
-      Index k = 0;
-      for (Index i = 0; i < N_; ++i)
-        for (Index j = i + 1; j < N_; ++j, ++k)
-          g[k] = grad_(j, i) + grad_(i, j) + 4.0 * s_.l2 * theta_(i, j);
-    } else if (whitened()) {
-      // Gradient in v_i: L_i^{-1} (gradient in p_i); residuals use the gradient in p.
-      last_grad_ = grad_ + 2.0 * s_.l2 * theta_;
-      last_grad_.diagonal().setZero();
-      last_grad_h_ = grad_h_;
-      parallel_for(N_, f_.threads(), [&](Index i) {
-        VectorXd q(N_);
-        for (Index k = 0; k < N_ - 1; ++k) q(k) = last_grad_(k < i ? k : k + 1, i);
-        q(N_ - 1) = grad_h_(i);
-        factors_[std::size_t(i)].triangularView<Eigen::Lower>().solveInPlace(q);
-        Eigen::Map<VectorXd>(g + i * N_, N_) = q;
-      });
-      return fx;
-    } else {
-      Eigen::Map<MatrixXd> G(g, N_, N_);
-      G = grad_ + 2.0 * s_.l2 * theta_;
-      G.diagonal().setZero();
-    }
-    Eigen::Map<VectorXd>(g + couplings_, N_) = grad_h_;
-    return fx;
-  }
-
-  // Per-unit optimality residual: largest |gradient| (L1: minimum-norm subgradient).
-  VectorXd residuals(const double* x, const double* g) const {
-    if (whitened()) {  // gradient in p of the point evaluated last (the accepted iterate)
-      VectorXd res = last_grad_h_.cwiseAbs();
-      for (Index i = 0; i < N_; ++i) res(i) = std::max(res(i), last_grad_.col(i).cwiseAbs().maxCoeff());
-      return res;
-    }
-    const double c = owlqn_c();
-    auto r = [c](double xv, double gv) {
-      if (c == 0.0) return std::abs(gv);
-      if (xv > 0) return std::abs(gv + c);
-      if (xv < 0) return std::abs(gv - c);
-      return std::max(0.0, std::abs(gv) - c);
-    };
-    VectorXd res = Eigen::Map<const VectorXd>(g + couplings_, N_).cwiseAbs();
-    if (s_.symmetric) {
-      Index k = 0;
-      for (Index i = 0; i < N_; ++i)
-        for (Index j = i + 1; j < N_; ++j, ++k) {
-          const double v = r(x[k], g[k]);
-          res(i) = std::max(res(i), v);
-          res(j) = std::max(res(j), v);
-        }
-    } else {
-      for (Index i = 0; i < N_; ++i)
-        for (Index j = 0; j < N_; ++j)
-          if (j != i) res(i) = std::max(res(i), r(x[i * N_ + j], g[i * N_ + j]));
-    }
     return res;
   }
 
-  std::int64_t evaluations = 0;
-
-  double l1_term(const double* x) const {
-    if (s_.l1 == 0) return 0.0;
-    return owlqn_c() * Eigen::Map<const VectorXd>(x, couplings_).lpNorm<1>();
-  }
+  const std::vector<Index>& units() const { return units_; }
 
  private:
+  // Minimum-norm subgradient magnitude of g + c |x| in one coordinate.
+  static double subgradient(double x, double g, double c) {
+    if (c == 0.0) return std::abs(g);
+    if (x > 0) return std::abs(g + c);
+    if (x < 0) return std::abs(g - c);
+    return std::max(0.0, std::abs(g) - c);
+  }
+
+  void value_and_scale(Index i, double& value, double& scale) const {
+    const double mean = loss_(i) / W_;
+    if (s_.logarithmic) {
+      value = std::log(mean);
+      scale = 1.0 / loss_(i);
+    } else {
+      value = mean;
+      scale = 1.0 / W_;
+    }
+  }
+
+  void evaluate_unit(std::int64_t k, const VectorXd& x, double& f, VectorXd& g, double& residual) const {
+    const Index i = units_[std::size_t(k)];
+    double value, scale;
+    value_and_scale(i, value, scale);
+    VectorXd gp(N_);  // gradient in p = (Theta_{-i,i}, h_i)
+    double penalty = 0;
+    for (Index a = 0; a < N_ - 1; ++a) {
+      const Index j = a < i ? a : a + 1;
+      const double t = theta_(j, i);
+      gp(a) = grad_(j, i) * scale + 2.0 * s_.l2 * t;
+      penalty += t * t;
+    }
+    gp(N_ - 1) = grad_h_(i) * scale;
+    f = value + s_.l2 * penalty;
+    residual = std::abs(gp(N_ - 1));
+    for (Index a = 0; a < N_ - 1; ++a)
+      residual = std::max(residual, subgradient(x(a), gp(a), s_.l1));
+    if (!std::isfinite(f) || !gp.allFinite()) f = std::numeric_limits<double>::infinity();
+    const MatrixXd& L = factors_[std::size_t(i)];
+    if (L.size()) {  // gradient in v = L^T p is L^-1 (gradient in p)
+      L.triangularView<Eigen::Lower>().solveInPlace(gp);
+    }
+    g = std::move(gp);
+  }
+
+  void evaluate_symmetric(const VectorXd& x, double& f, VectorXd& g, double& residual) const {
+    const Index pairs = N_ * (N_ - 1) / 2;
+    double total = 0;
+    VectorXd scale(N_);
+    for (Index i = 0; i < N_; ++i) {
+      double value;
+      value_and_scale(i, value, scale(i));
+      total += value;
+    }
+    f = total + s_.l2 * theta_.squaredNorm();
+    g.resize(pairs + N_);
+    Index k = 0;
+    for (Index i = 0; i < N_; ++i)
+      for (Index j = i + 1; j < N_; ++j, ++k)
+        g(k) = grad_(j, i) * scale(i) + grad_(i, j) * scale(j) + 4.0 * s_.l2 * theta_(i, j);
+    g.tail(N_) = grad_h_.cwiseProduct(scale);
+    if (!std::isfinite(f) || !g.allFinite()) f = std::numeric_limits<double>::infinity();
+    residual = symmetric_unit_residuals(x, g).maxCoeff();
+  }
+
   // Per-unit preconditioning by a linear change of variables (same optimum, same objective):
   // with z = (s, 1) and M = E_w[z z^T], unit i's parameters p_i = (Theta_{-i,i}, h_i) are
   // written p_i = L_i^{-T} v_i where L_i L_i^T = M_{-i,-i} (Cholesky). The per-unit Hessian
   // E_w[(1 - tanh^2 H_i) z_{-i} z_{-i}^T] then becomes L_i^{-1} (...) L_i^{-T}, close to a
   // multiple of the identity when the curvature weights vary little, so L-BFGS needs far fewer
   // iterations on correlated data (standard whitening of a GLM design; Nocedal & Wright 2006,
-  // Numerical Optimization, §7.2 on preconditioned quasi-Newton). Factors cost N^3 doubles of
-  // memory and N^4/3 flops once, so this is used for N <= kWhitenMaxUnits; a singular M (e.g.
-  // two identical units) leaves the plain parametrisation.
+  // Numerical Optimization, §7.2 on preconditioned quasi-Newton). Factors cost N^2 doubles per
+  // fitted unit and N^3/3 flops each, so this is used for N <= kWhitenMaxUnits. The decision is
+  // per unit (a numerically singular M_{-i,-i}, e.g. two identical units, leaves that unit in
+  // the plain parametrisation), so a unit's iterates never depend on which other units are fitted.
   static constexpr Index kWhitenMaxUnits = 200;
   void build_whitening() {
     const MatrixXd M = f_.second_moments();
-    std::vector<MatrixXd> factors(static_cast<std::size_t>(N_));
-    std::vector<char> ok(static_cast<std::size_t>(N_), 0);
-    parallel_for(N_, f_.threads(), [&](Index i) {
+    parallel_for(Index(units_.size()), f_.threads(), [&](Index k) {
+      const Index i = units_[std::size_t(k)];
       MatrixXd A(N_, N_);
-      auto idx = [i](Index k) { return k < i ? k : k + 1; };  // reduced -> z index
+      auto idx = [i](Index a) { return a < i ? a : a + 1; };  // reduced -> z index
       for (Index a = 0; a < N_; ++a)
         for (Index b = 0; b < N_; ++b) A(a, b) = M(idx(a), idx(b));
       Eigen::LLT<MatrixXd> llt(A);
@@ -211,170 +228,133 @@ class Problem {
       MatrixXd L = llt.matrixL();
       const double dmin = L.diagonal().minCoeff(), dmax = L.diagonal().maxCoeff();
       if (!(dmin > 1e-6 * dmax)) return;  // numerically singular: do not precondition
-      factors[std::size_t(i)] = std::move(L);
-      ok[std::size_t(i)] = 1;
+      factors_[std::size_t(i)] = std::move(L);
     });
-    for (char c : ok)
-      if (!c) return;
-    factors_ = std::move(factors);
-    couplings_ = N_ * N_ - N_;  // x = [v_0, ..., v_{N-1}], N entries each; last N "fields"
   }
-
-  std::vector<MatrixXd> factors_;
-  MatrixXd last_grad_;
-  VectorXd last_grad_h_;
 
   const LocalFields& f_;
   const LocalFitSettings& s_;
-  Index N_, pairs_ = 0, couplings_ = 0;
+  Index N_;
   double W_;
+  std::vector<Index> units_;
+  std::vector<MatrixXd> factors_;  // per unit index; empty matrix = not whitened
   MatrixXd theta_, grad_;
   VectorXd h_, loss_, grad_h_;
 };
 
-struct Driver {
-  Problem* problem;
-  const LocalFitSettings* settings;
-  std::exception_ptr error;
-  bool interrupted = false;
-  bool converged = false;
-  std::int64_t iterations = 0;
-  double objective = 0;
-  VectorXd residual;
-  std::chrono::steady_clock::time_point start;
-};
-
-lbfgsfloatval_t evaluate_cb(void* instance, const lbfgsfloatval_t* x, lbfgsfloatval_t* g, int,
-                            lbfgsfloatval_t) {
-  auto* d = static_cast<Driver*>(instance);
-  if (d->error) return std::numeric_limits<double>::quiet_NaN();
-  try {
-    return d->problem->evaluate(x, g);
-  } catch (...) {  // never unwind through C frames
-    d->error = std::current_exception();
-    std::fill(g, g + d->problem->size(), 0.0);
-    return std::numeric_limits<double>::quiet_NaN();
-  }
+std::vector<Index> all_units(Index N) {
+  std::vector<Index> u(static_cast<std::size_t>(N));
+  for (Index i = 0; i < N; ++i) u[std::size_t(i)] = i;
+  return u;
 }
-
-int progress_cb(void* instance, const lbfgsfloatval_t* x, const lbfgsfloatval_t* g,
-                lbfgsfloatval_t fx, lbfgsfloatval_t, lbfgsfloatval_t, lbfgsfloatval_t, int, int k,
-                int) {
-  auto* d = static_cast<Driver*>(instance);
-  if (d->error) return 1;
-  try {
-    d->iterations = k;
-    d->objective = fx;
-    d->residual = d->problem->residuals(x, g);
-    d->converged = d->residual.maxCoeff() <= d->settings->tolerance;
-    if (d->settings->progress) {
-      Progress p;
-      p.stage = d->settings->stage;
-      p.done = k;
-      p.total = d->settings->max_iterations;
-      p.objective = fx;
-      p.elapsed_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - d->start).count();
-      if (!d->settings->progress(p)) {
-        d->interrupted = true;
-        return 1;
-      }
-    }
-    return d->converged ? 1 : 0;
-  } catch (...) {
-    d->error = std::current_exception();
-    return 1;
-  }
-}
-
-struct LbfgsBuffer {
-  explicit LbfgsBuffer(Index n) : x(lbfgs_malloc(int(n))) {
-    if (!x) throw std::bad_alloc();
-  }
-  ~LbfgsBuffer() { lbfgs_free(x); }
-  LbfgsBuffer(const LbfgsBuffer&) = delete;
-  LbfgsBuffer& operator=(const LbfgsBuffer&) = delete;
-  lbfgsfloatval_t* x;
-};
 
 }  // namespace
 
 LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& s,
-                         const LocalFitResult* start) {
+                         const LocalFitResult* start, const std::vector<std::int64_t>* units,
+                         const nlohmann::json* resume, const LocalSaveState& save_state) {
   const Index N = fields.units();
   if (!(s.l1 >= 0) || !(s.l2 >= 0) || !std::isfinite(s.l1) || !std::isfinite(s.l2))
     throw InputError(s.stage + ": penalties must be finite and >= 0 (got l1 = " +
                      std::to_string(s.l1) + ", l2 = " + std::to_string(s.l2) + ")");
   if (s.max_iterations < 0) throw InputError(s.stage + ": max_iterations must be >= 0");
   if (!(s.tolerance > 0)) throw InputError(s.stage + ": tolerance must be > 0");
-  if (N * N + N > std::numeric_limits<int>::max())
-    throw InputError(s.stage + ": " + std::to_string(N) + " units is more than the optimiser's "
-                     "index range allows");
-  Problem problem(fields, s);
-  const Index n = problem.size();
-  LbfgsBuffer buf(n);
-  if (start) {
-    problem.pack(start->h, start->J, buf.x);
+  std::vector<Index> fitted = units ? *units : all_units(N);
+  for (Index i : fitted)
+    if (i < 0 || i >= N) throw InputError(s.stage + ": unit " + std::to_string(i) + " is out of range");
+  if (s.symmetric && units && Index(fitted.size()) != N)
+    throw InputError(s.stage + ": the symmetric objective couples all units; it cannot be fitted "
+                     "for a subset of units (use the per-variable objective for shards)");
+
+  Objectives objectives(fields, s, fitted);
+  LockstepSettings ls;
+  ls.max_iterations = s.max_iterations;
+  ls.tolerance = s.tolerance;
+  ls.threads = fields.threads();
+  LockstepMinimiser minimiser(objectives.problems(), ls);
+  auto evaluate = [&](const std::vector<std::int64_t>& which, const std::vector<VectorXd>& x,
+                      std::vector<double>& f, std::vector<VectorXd>& g, std::vector<double>& r) {
+    objectives.evaluate(which, x, f, g, r);
+  };
+  if (resume) {
+    minimiser.from_json(*resume);
   } else {
-    // Independent model: h = atanh(m), the optimum of both objectives at J = 0.
-    const VectorXd m = fields.spin_means().cwiseMax(-1 + 1e-9).cwiseMin(1 - 1e-9);
-    problem.pack(m.array().atanh().matrix(), MatrixXd::Zero(N, N), buf.x);
+    VectorXd h0;
+    MatrixXd theta0;
+    if (start) {
+      h0 = start->h;
+      theta0 = start->theta.size() ? start->theta : start->J;
+    } else {
+      // Independent model: h = atanh(m), the optimum of both objectives at J = 0.
+      const VectorXd m = fields.spin_means().cwiseMax(-1 + 1e-9).cwiseMin(1 - 1e-9);
+      h0 = m.array().atanh().matrix();
+      theta0 = MatrixXd::Zero(N, N);
+    }
+    try {
+      minimiser.start(objectives.pack(h0, theta0), evaluate);
+    } catch (const NumericalError&) {
+      throw NumericalError(s.stage + ": the objective is not finite at the starting point; "
+                           "increase the penalty or start elsewhere");
+    }
   }
 
-  Driver d;
-  d.problem = &problem;
-  d.settings = &s;
-  d.start = std::chrono::steady_clock::now();
-  {
-    // Already at the optimum (e.g. warm start from the solution)? Then no iteration is made.
-    std::vector<double> g(std::size_t(n), 0.0);
-    d.objective = problem.evaluate(buf.x, g.data()) + problem.l1_term(buf.x);
-    d.residual = problem.residuals(buf.x, g.data());
-    d.converged = d.residual.maxCoeff() <= s.tolerance;
-  }
-  if (!d.converged && s.max_iterations > 0) {
-    lbfgs_parameter_t p;
-    lbfgs_parameter_init(&p);
-    p.m = 10;
-    p.epsilon = 0;  // convergence is tested per unit in progress_cb
-    p.max_iterations = s.max_iterations;
-    p.max_linesearch = 40;
-    if (s.l1 > 0) {
-      p.orthantwise_c = problem.owlqn_c();
-      p.orthantwise_start = 0;
-      p.orthantwise_end = int(problem.coupling_count());
-      p.linesearch = LBFGS_LINESEARCH_BACKTRACKING;  // required by OWL-QN
-    } else {
-      p.linesearch = LBFGS_LINESEARCH_MORETHUENTE;
+  const auto t0 = std::chrono::steady_clock::now();
+  auto last_save = t0;
+  bool interrupted = false;
+  auto after_round = [&](std::int64_t round, double objective) {
+    const auto now = std::chrono::steady_clock::now();
+    if (s.progress) {
+      Progress p;
+      p.stage = s.stage;
+      p.done = round;
+      p.total = s.max_iterations;
+      p.objective = objective;
+      p.elapsed_s = std::chrono::duration<double>(now - t0).count();
+      if (!s.progress(p)) {
+        interrupted = true;
+        return false;
+      }
     }
-    lbfgsfloatval_t fx = 0;
-    lbfgs(int(n), buf.x, &fx, evaluate_cb, progress_cb, &d, &p);
-    if (d.error) std::rethrow_exception(d.error);
-    if (d.interrupted) throw Interrupted(s.stage + ": interrupted by the progress callback");
-    // Line-search failures near the optimum leave x at the last accepted iterate, which is the
-    // one progress_cb saw; its residual decides `converged`.
+    if (save_state && std::chrono::duration<double>(now - last_save).count() >= s.checkpoint_every_s) {
+      save_state(minimiser.to_json());
+      last_save = now;
+    }
+    return true;
+  };
+  minimiser.run(evaluate, after_round);
+  if (interrupted) {
+    if (save_state) save_state(minimiser.to_json());
+    throw Interrupted(s.stage + ": interrupted by the progress callback");
   }
+
+  const auto& states = minimiser.states();
   LocalFitResult out;
-  problem.unpack(buf.x);
-  out.h = Eigen::Map<const VectorXd>(buf.x + problem.coupling_count(), N);
-  MatrixXd theta(N, N);
+  MatrixXd theta;
+  VectorXd h;
+  objectives.solution(states, h, theta);
+  out.h = h;
+  out.theta = theta;
+  out.units = fitted;
+  out.J = s.symmetric ? theta : MatrixXd(0.5 * (theta + theta.transpose()));
+  out.evaluations = minimiser.evaluations();
+  out.rounds = minimiser.rounds();
+  out.objective = minimiser.objective_sum();
   if (s.symmetric) {
-    theta.setZero();
-    Index k = 0;
-    for (Index i = 0; i < N; ++i)
-      for (Index j = i + 1; j < N; ++j) theta(i, j) = theta(j, i) = buf.x[k++];
-    out.J = theta;
+    const VectorXd res = objectives.symmetric_unit_residuals(states[0].x, states[0].g);
+    out.iterations = states[0].iterations;
+    for (Index i = 0; i < N; ++i) {
+      out.unit_iterations.push_back(states[0].iterations);
+      out.unit_objective.push_back(states[0].f / double(N));
+      if (!(res(i) <= s.tolerance)) out.unconverged.push_back(i);
+    }
   } else {
-    VectorXd h;
-    problem.solution(buf.x, h, theta);
-    out.h = h;
-    out.J = 0.5 * (theta + theta.transpose());  // average the two estimates of each pair
+    for (std::size_t k = 0; k < states.size(); ++k) {
+      out.iterations = std::max(out.iterations, states[k].iterations);
+      out.unit_iterations.push_back(states[k].iterations);
+      out.unit_objective.push_back(states[k].f);
+      if (!(states[k].residual <= s.tolerance)) out.unconverged.push_back(fitted[k]);
+    }
   }
-  out.iterations = d.iterations;
-  out.evaluations = problem.evaluations;
-  out.objective = d.objective;
-  out.converged = d.converged;
-  for (Index i = 0; i < N; ++i)
-    if (!(d.residual(i) <= s.tolerance)) out.unconverged.push_back(i);
   out.converged = out.unconverged.empty();
   return out;
 }
@@ -469,66 +449,162 @@ Choice choose_penalty(const PreparedData& prepared, const LocalFitSettings& base
 
 }  // namespace
 
-IsingModel fit_local_model(const SpinMatrix& data, const LocalFitRequest& req) {
-  require_no_constant_units(data, "data");
-  const std::int64_t N = data.cols();
-  LocalFitSettings s = req.settings;
-  const bool auto_l1 = s.l1 == automatic_penalty, auto_l2 = s.l2 == automatic_penalty;
-  if (auto_l1 && auto_l2) s.l2 = 0;  // choose l1 alone; l2 defaults to none
-  PreparedData prepared(data, req.representation, req.threads);
+namespace {
 
+// Everything before the final fit: constant units, warm start, automatic penalties. The final
+// fit's checkpoint state is {"stage": "final", "l1", "l2", "selection", "optimiser"}; a state
+// saved during the penalty choice is {"stage": "penalty-choice"} and resuming from it repeats
+// the choice (it is deterministic).
+struct FinalFit {
+  LocalFitSettings settings;
+  nlohmann::json selection;
   LocalFitResult start;
   bool has_start = false;
+  std::optional<nlohmann::json> resume_optimiser;
+};
+
+FinalFit prepare_final_fit(const SpinMatrix& data, const LocalFitRequest& req,
+                           const PreparedData& prepared) {
+  require_no_constant_units(data, "data");
+  const std::int64_t N = data.cols();
+  FinalFit ff;
+  LocalFitSettings& s = ff.settings;
+  s = req.settings;
+  s.checkpoint_every_s = req.checkpoint.every_seconds;
+  const auto& resume = req.checkpoint.resume;
+  if (resume) {
+    if (!resume->is_object() || !resume->contains("stage"))
+      throw InputError(s.stage + ": the checkpoint state is not a fit state");
+    if (resume->at("stage") == "final") {
+      try {
+        s.l1 = resume->at("l1").get<double>();
+        s.l2 = resume->at("l2").get<double>();
+        ff.selection = resume->at("selection");
+        ff.resume_optimiser = resume->at("optimiser");
+      } catch (const nlohmann::json::exception& e) {
+        throw InputError(s.stage + ": the checkpoint state is incomplete (" + e.what() + ")");
+      }
+      return ff;
+    }
+  }
+  const bool auto_l1 = s.l1 == automatic_penalty, auto_l2 = s.l2 == automatic_penalty;
+  if (auto_l1 && auto_l2) s.l2 = 0;  // choose l1 alone; l2 defaults to none
   if (req.warm_start) {
     const IsingModel w = convert_model(*req.warm_start, Convention::spin);
     if (w.size() != N)
       throw InputError("warm start: the model has " + std::to_string(w.size()) +
                        " units but the data have " + std::to_string(N));
     validate_model(w, "warm start");
-    start.h = w.fields;
-    start.J = w.couplings;
-    has_start = true;
+    ff.start.h = w.fields;
+    ff.start.J = w.couplings;
+    ff.has_start = true;
   }
-  nlohmann::json selection;
-  if (auto_l1 || (auto_l2 && !auto_l1)) {
+  if (auto_l1 || auto_l2) {
     const bool l1_kind = auto_l1;
     if (l1_kind) s.l1 = 0;
     else s.l2 = 0;
-    if (s.l1 < 0 || s.l2 < 0)
-      throw InputError(s.stage + ": penalties must be >= 0 or automatic");
+    if (s.l1 < 0 || s.l2 < 0) throw InputError(s.stage + ": penalties must be >= 0 or automatic");
+    if (req.checkpoint.save) req.checkpoint.save({{"stage", "penalty-choice"}});
     Choice c = choose_penalty(prepared, s, l1_kind, req.threads);
     (l1_kind ? s.l1 : s.l2) = c.penalty;
-    selection = c.report;
-    selection["kind"] = l1_kind ? "l1" : "l2";
-    if (c.has_start && !has_start) {
-      start = c.start;
-      has_start = true;
+    ff.selection = c.report;
+    ff.selection["kind"] = l1_kind ? "l1" : "l2";
+    if (c.has_start && !ff.has_start) {
+      ff.start = c.start;
+      ff.has_start = true;
     }
   }
-  LocalFields all(prepared, req.threads);
-  LocalFitResult r = fit_local(all, s, has_start ? &start : nullptr);
+  return ff;
+}
 
+LocalFitResult run_final_fit(const FinalFit& ff, const LocalFitRequest& req,
+                             const LocalFields& all, const std::vector<std::int64_t>* units) {
+  LocalSaveState save;
+  if (req.checkpoint.save) {
+    const LocalFitSettings& s = ff.settings;
+    save = [&](const nlohmann::json& optimiser) {
+      req.checkpoint.save({{"stage", "final"},
+                           {"l1", s.l1},
+                           {"l2", s.l2},
+                           {"selection", ff.selection},
+                           {"optimiser", optimiser}});
+    };
+  }
+  return fit_local(all, ff.settings, ff.has_start ? &ff.start : nullptr, units,
+                   ff.resume_optimiser ? &*ff.resume_optimiser : nullptr, save);
+}
+
+Provenance make_provenance(const SpinMatrix& data, const LocalFitRequest& req, const FinalFit& ff,
+                           const PreparedData& prepared, const LocalFitResult& r) {
+  Provenance p;
+  p.method = req.method;
+  p.l1 = ff.settings.l1;
+  p.l2 = ff.settings.l2;
+  p.iterations = r.iterations;
+  p.converged = r.converged;
+  p.objective = r.objective;
+  p.samples = data.rows();
+  p.units = data.cols();
+  p.version = version();
+  p.extra = req.extra;
+  p.extra["representation"] = prepared.description();
+  p.extra["unconverged_units"] = r.unconverged;
+  p.extra["tolerance"] = ff.settings.tolerance;
+  p.extra["evaluations"] = r.evaluations;
+  p.extra["rounds"] = r.rounds;
+  if (!ff.selection.is_null()) p.extra["penalty_selection"] = ff.selection;
+  return p;
+}
+
+}  // namespace
+
+UnitFits fit_local_units(const SpinMatrix& data, const LocalFitRequest& req,
+                         const std::vector<std::int64_t>& units) {
+  if (req.settings.symmetric)
+    throw InputError(req.settings.stage + ": the symmetric objective couples all units and "
+                     "cannot be split into shards; use the per-variable objective");
+  for (std::size_t k = 0; k < units.size(); ++k)
+    if (units[k] < 0 || units[k] >= data.cols() || (k > 0 && units[k] <= units[k - 1]))
+      throw InputError(req.settings.stage + ": the units to fit must be distinct, ascending and "
+                       "within 0.." + std::to_string(data.cols() - 1));
+  PreparedData prepared(data, req.representation, req.threads);
+  const FinalFit ff = prepare_final_fit(data, req, prepared);
+  LocalFields all(prepared, req.threads);
+  const LocalFitResult r = run_final_fit(ff, req, all, &units);
+  UnitFits out;
+  out.total_units = data.cols();
+  out.names = data.names();
+  out.units = units;
+  out.coefficients.resize(data.cols(), Eigen::Index(units.size()));
+  out.fields.resize(Eigen::Index(units.size()));
+  for (std::size_t k = 0; k < units.size(); ++k) {
+    out.coefficients.col(Eigen::Index(k)) = r.theta.col(units[k]);
+    out.coefficients(units[k], Eigen::Index(k)) = 0.0;
+    out.fields(Eigen::Index(k)) = r.h(units[k]);
+  }
+  out.iterations = r.unit_iterations;
+  out.objective = r.unit_objective;
+  out.unconverged = r.unconverged;
+  out.provenance = make_provenance(data, req, ff, prepared, r);
+  return out;
+}
+
+IsingModel fit_local_model(const SpinMatrix& data, const LocalFitRequest& req) {
+  if (!req.settings.symmetric) {
+    std::vector<std::int64_t> units(static_cast<std::size_t>(data.cols()));
+    for (std::int64_t i = 0; i < data.cols(); ++i) units[std::size_t(i)] = i;
+    return assemble_unit_fits({fit_local_units(data, req, units)}, Convention::spin);
+  }
+  PreparedData prepared(data, req.representation, req.threads);
+  const FinalFit ff = prepare_final_fit(data, req, prepared);
+  LocalFields all(prepared, req.threads);
+  const LocalFitResult r = run_final_fit(ff, req, all, nullptr);
   IsingModel m;
   m.convention = Convention::spin;
   m.fields = r.h;
   m.couplings = r.J;
   m.names = data.names();
-  Provenance& p = m.provenance;
-  p.method = req.method;
-  p.l1 = s.l1;
-  p.l2 = s.l2;
-  p.iterations = r.iterations;
-  p.converged = r.converged;
-  p.objective = r.objective;
-  p.samples = data.rows();
-  p.units = N;
-  p.version = version();
-  p.extra = req.extra;
-  p.extra["representation"] = prepared.description();
-  p.extra["unconverged_units"] = r.unconverged;
-  p.extra["tolerance"] = s.tolerance;
-  p.extra["evaluations"] = r.evaluations;
-  if (!selection.is_null()) p.extra["penalty_selection"] = selection;
+  m.provenance = make_provenance(data, req, ff, prepared, r);
   return m;
 }
 

@@ -4,6 +4,7 @@
 #pragma once
 
 #include <cstdint>
+#include <functional>
 #include <optional>
 #include <string>
 #include <vector>
@@ -12,8 +13,12 @@
 #include <nlohmann/json.hpp>
 
 #include "local_fields.hpp"
+#include "spinfer/checkpoint.hpp"
 #include "spinfer/model.hpp"
+#include "spinfer/unit_fits.hpp"
 #include "spinfer/progress.hpp"
+#include "spinfer/pseudo_likelihood.hpp"
+#include "spinfer/screening.hpp"
 
 namespace spinfer::detail {
 
@@ -26,22 +31,37 @@ struct LocalFitSettings {
   double tolerance = 1e-6;
   ProgressCallback progress;
   std::string stage = "pseudo-likelihood";
+  double checkpoint_every_s = 600;  ///< seconds between periodic saves of the optimiser state
 };
 
 struct LocalFitResult {
-  Eigen::VectorXd h;
-  Eigen::MatrixXd J;         ///< symmetric (averaged or tied), zero diagonal
-  std::int64_t iterations = 0;
-  std::int64_t evaluations = 0;  ///< objective + gradient evaluations (the cost unit)
+  Eigen::VectorXd h;             ///< N (per-variable with a unit subset: only those entries set)
+  Eigen::MatrixXd theta;         ///< N x N, column i = couplings into unit i (unaveraged)
+  Eigen::MatrixXd J;             ///< symmetric (averaged or tied), zero diagonal
+  std::vector<std::int64_t> units;  ///< the fitted units
+  std::int64_t iterations = 0;   ///< largest number of accepted steps of any unit
+  std::int64_t rounds = 0;       ///< lock-step rounds (batched evaluations)
+  std::int64_t evaluations = 0;  ///< per-unit objective + gradient evaluations (the cost unit)
   bool converged = false;
-  double objective = 0;
+  double objective = 0;          ///< sum over the fitted problems of their final objective
+  std::vector<std::int64_t> unit_iterations;  ///< per fitted unit, in `units` order
+  std::vector<double> unit_objective;         ///< per fitted unit (symmetric: total / N)
   std::vector<std::int64_t> unconverged;
 };
 
+/// Receives the optimiser's complete state (for checkpoints).
+using LocalSaveState = std::function<void(const nlohmann::json& optimiser_state)>;
+
 /// One fit with resolved penalties. `start` (spin convention) may be null: then h = atanh(m),
-/// J = 0. Throws Interrupted, NumericalError (non-finite objective).
+/// J = 0. `units` (per-variable only) restricts the fit to those units: each unit's iterates are
+/// exactly those of the full fit. `resume` continues from a state given to `save_state` (which
+/// is called every settings.checkpoint_every_s and when interrupted). Throws Interrupted,
+/// NumericalError (non-finite objective at the start), InputError (bad settings or state).
 LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& settings,
-                         const LocalFitResult* start);
+                         const LocalFitResult* start,
+                         const std::vector<std::int64_t>* units = nullptr,
+                         const nlohmann::json* resume = nullptr,
+                         const LocalSaveState& save_state = nullptr);
 
 /// Mean per-sample pseudo-log-likelihood of (h, J) on the selected rows.
 double mean_pseudo_log_likelihood(const LocalFields& fields, const Eigen::VectorXd& h,
@@ -56,7 +76,17 @@ struct LocalFitRequest {
   std::optional<IsingModel> warm_start;
   std::string method;
   nlohmann::json extra = nlohmann::json::object();
+  CheckpointHooks checkpoint;
 };
 IsingModel fit_local_model(const SpinMatrix& data, const LocalFitRequest& request);
+
+/// Requests as fit_pseudo_likelihood / fit_screening build them.
+LocalFitRequest pseudo_likelihood_request(const PseudoLikelihoodOptions& options);
+LocalFitRequest screening_request(const ScreeningOptions& options);
+
+/// The per-variable problems of `units` only (see unit_fits.hpp); request.settings.symmetric
+/// must be false.
+UnitFits fit_local_units(const SpinMatrix& data, const LocalFitRequest& request,
+                         const std::vector<std::int64_t>& units);
 
 }  // namespace spinfer::detail

@@ -5,7 +5,7 @@
 
 namespace spinfer {
 
-IsingModel fit_pseudo_likelihood(const SpinMatrix& data, const PseudoLikelihoodOptions& o) {
+detail::LocalFitRequest detail::pseudo_likelihood_request(const PseudoLikelihoodOptions& o) {
   detail::LocalFitRequest req;
   req.settings.loss = detail::LocalLoss::pseudo_likelihood;
   req.settings.symmetric = o.symmetric;
@@ -20,7 +20,12 @@ IsingModel fit_pseudo_likelihood(const SpinMatrix& data, const PseudoLikelihoodO
   req.warm_start = o.warm_start;
   req.method = "pseudo-likelihood";
   req.extra = {{"variant", o.symmetric ? "symmetric" : "per-variable"}};
-  return detail::fit_local_model(data, req);
+  req.checkpoint = o.checkpoint;
+  return req;
+}
+
+IsingModel fit_pseudo_likelihood(const SpinMatrix& data, const PseudoLikelihoodOptions& o) {
+  return detail::fit_local_model(data, detail::pseudo_likelihood_request(o));
 }
 
 double pseudo_log_likelihood(const IsingModel& model, const SpinMatrix& data, int threads) {

@@ -4,7 +4,7 @@
 
 namespace spinfer {
 
-IsingModel fit_screening(const SpinMatrix& data, const ScreeningOptions& o) {
+detail::LocalFitRequest detail::screening_request(const ScreeningOptions& o) {
   detail::LocalFitRequest req;
   req.settings.loss = detail::LocalLoss::screening;
   req.settings.logarithmic = o.logarithmic;
@@ -20,7 +20,12 @@ IsingModel fit_screening(const SpinMatrix& data, const ScreeningOptions& o) {
   req.warm_start = o.warm_start;
   req.method = "screening";
   req.extra = {{"variant", o.logarithmic ? "log-rise" : "rise"}, {"symmetric", o.symmetric}};
-  return detail::fit_local_model(data, req);
+  req.checkpoint = o.checkpoint;
+  return req;
+}
+
+IsingModel fit_screening(const SpinMatrix& data, const ScreeningOptions& o) {
+  return detail::fit_local_model(data, detail::screening_request(o));
 }
 
 }  // namespace spinfer

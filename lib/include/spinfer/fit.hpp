@@ -9,6 +9,7 @@
 #include <string>
 #include <vector>
 
+#include "spinfer/checkpoint.hpp"
 #include "spinfer/model.hpp"
 #include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
@@ -35,6 +36,9 @@ struct FitOptions {
   std::string representation = "auto";
   std::optional<Convention> convention;  ///< of the result; default: the data's
   ProgressCallback progress;
+  /// pseudo-likelihood / screening: periodic and on-interrupt optimiser state, and resuming
+  /// from it (bit-identical to an uninterrupted fit). Closed forms ignore it.
+  CheckpointHooks checkpoint;
 };
 
 /// The method names accepted by fit_model.

@@ -16,9 +16,11 @@
 // Fields are never penalised. Penalties are per-sample quantities (the likelihood is averaged,
 // not summed), so a fixed prior corresponds to penalties falling like 1/T.
 //
-// Optimiser: L-BFGS (liblbfgs) for L2 only; OWL-QN (liblbfgs orthantwise, backtracking line
-// search) when l1 > 0. All N per-variable problems are solved as one separable problem so that
-// both heavy products per iteration are matrix-matrix products (see `representation`).
+// Optimiser: L-BFGS for L2 only, OWL-QN when l1 > 0 (Andrew & Gao 2007), one independent
+// optimiser state per unit advanced in lock-step (lockstep_lbfgs.hpp): every round evaluates all
+// running units together, so both heavy products per round are matrix-matrix products (see
+// `representation`), yet unit i's iterates never depend on the other units (shards and MPI
+// ranks reproduce the full fit exactly; unit_fits.hpp). The symmetric objective is one problem.
 // Convergence: every unit's largest gradient entry (for L1 the minimum-norm subgradient) of its
 // per-sample objective is at most `tolerance`; the flag is kept per unit (provenance.extra
 // "unconverged_units") and overall (provenance.converged).
@@ -28,6 +30,7 @@
 #include <optional>
 #include <string>
 
+#include "spinfer/checkpoint.hpp"
 #include "spinfer/model.hpp"
 #include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
@@ -50,6 +53,7 @@ struct PseudoLikelihoodOptions {
   /// counts), "patterns-dense", "patterns-sparse". "auto" uses patterns when they cut the rows by
   /// 40 % or more, and the sparse kernel below 10 % activity. Reported in provenance.extra.
   std::string representation = "auto";
+  CheckpointHooks checkpoint;            ///< save / resume the optimiser state (checkpoint.hpp)
 };
 
 /// Fits by pseudo-likelihood. Provenance: method "pseudo-likelihood", l1, l2 (the values used),

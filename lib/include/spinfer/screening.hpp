@@ -15,6 +15,7 @@
 #include <optional>
 #include <string>
 
+#include "spinfer/checkpoint.hpp"
 #include "spinfer/model.hpp"
 #include "spinfer/progress.hpp"
 #include "spinfer/pseudo_likelihood.hpp"
@@ -33,6 +34,7 @@ struct ScreeningOptions {
   std::optional<IsingModel> warm_start;
   ProgressCallback progress;
   std::string representation = "auto";
+  CheckpointHooks checkpoint;            ///< save / resume the optimiser state (checkpoint.hpp)
 };
 
 /// Fits by interaction screening. Provenance: method "screening", extra {"variant": "rise" |
