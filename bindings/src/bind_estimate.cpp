@@ -4,6 +4,7 @@
 #include "spinfer/errors.hpp"
 #include "spinfer/fit.hpp"
 #include "spinfer/significance.hpp"
+#include "spinfer/unit_fits.hpp"
 
 namespace spinfer::py_bind {
 namespace {
@@ -58,6 +59,29 @@ void bind_estimate(py::module_& m) {
         }
         return model_to_dict(model);
       }, py::arg("data"), py::arg("options"));
+
+  m.def("fit_units", [](const SpinMatrix& data, const py::dict& options,
+                        const std::vector<std::int64_t>& units) {
+        const FitOptions o = fit_options(options);
+        UnitFits f;
+        {
+          py::gil_scoped_release release;
+          f = fit_model_units(data, o, units);
+        }
+        py::dict out;
+        out["units"] = py::cast(f.units);
+        out["coefficients"] = mat(f.coefficients);
+        out["fields"] = py::cast(Eigen::VectorXd(f.fields));
+        out["iterations"] = py::cast(f.iterations);
+        out["objective"] = py::cast(f.objective);
+        out["unconverged"] = py::cast(f.unconverged);
+        out["names"] = py::cast(f.names);
+        out["l1"] = f.provenance.l1;
+        out["l2"] = f.provenance.l2;
+        out["converged"] = f.unconverged.empty();
+        out["extra"] = json_to_py(f.provenance.extra);
+        return out;
+      }, py::arg("data"), py::arg("options"), py::arg("units"));
 
   m.def("coupling_significance", [](const SpinMatrix& data, const py::dict& options,
                                     std::int64_t bootstrap, std::int64_t nulls, std::int64_t block_length,

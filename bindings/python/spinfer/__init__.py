@@ -34,7 +34,7 @@ from .models import (  # noqa: E402
 )
 from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
 from .checking import check, check_table  # noqa: E402
-from .estimate import fit, fit_methods, significance, significance_table, benjamini_hochberg  # noqa: E402
+from .estimate import fit, fit_units, fit_methods, significance, significance_table, benjamini_hochberg  # noqa: E402
 from .sampling import sample, model_statistics, temperature_scan  # noqa: E402
 from .plots import (  # noqa: E402
     cluster_order,
@@ -80,6 +80,7 @@ __all__ = [
     "check",
     "check_table",
     "fit",
+    "fit_units",
     "fit_methods",
     "significance",
     "significance_table",

@@ -50,6 +50,24 @@ def fit(X, method: str = "pseudo-likelihood", *, data_convention: Optional[str] 
     return IsingModel._from_core(_core.fit_model(data, _fit_options(method, options)))
 
 
+def fit_units(X, units, method: str = "pseudo-likelihood", *, data_convention: Optional[str] = None,
+              weights=None, copy: bool = False, **options) -> dict:
+    """Fit only the per-variable problems of ``units`` (0-based), before the pair averaging.
+
+    For per-variable pseudo-likelihood and screening, each unit's problem is solved with its own
+    optimiser state, so the result for a unit is the same whether it is fitted alone, in a shard
+    or with all units. Returns a dict in the spin convention: ``coefficients`` (N x K, column k =
+    couplings into ``units[k]``, its own entry 0), ``fields`` (K), per-unit ``iterations`` and
+    ``objective``, ``unconverged`` units, the penalties used (``l1``, ``l2``) and ``extra``.
+    Options as in :func:`fit` (``symmetric`` and closed-form methods are refused).
+    """
+    data = as_matrix(X, convention=data_convention, copy=copy, weights=weights)
+    res = _core.fit_units(data, _fit_options(method, options), [int(u) for u in units])
+    res["coefficients"] = np.asarray(res["coefficients"])
+    res["fields"] = np.asarray(res["fields"])
+    return res
+
+
 def significance(X, method: str = "pseudo-likelihood", *, bootstrap: int = 100, nulls: int = 20,
                  block_length: int = 0, confidence: float = 0.95, fdr: float = 0.05,
                  convention: str = "spin", seed: int = 0,
