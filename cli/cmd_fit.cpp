@@ -161,7 +161,7 @@ void add_fit_command(CLI::App& app, Context& ctx) {
       "fits units [(K-1)N_units/N, K N_units/N) and writes a shard file; `spinfer merge` checks the\n"
       "shards (same input checksum and settings, all K present once) and writes the model, equal\n"
       "to the unsharded fit. Automatic penalties are chosen identically in every shard.\n\n"
-      "Examples:\n  spinfer fit recording.npz --method pseudo-likelihood --out model.json\n"
+      "Example:\n  spinfer fit recording.npz --method pseudo-likelihood --out model.json\n"
       "  spinfer fit recording.npz --l2 1e-4 --shard 2/8 --out part-2.json\n");
   sub->callback([&ctx, args] { ctx.run = [&ctx, args] { return run_fit(ctx, *args); }; });
 }
