@@ -87,9 +87,12 @@ void colour_units(std::int64_t N, const std::function<void(std::int64_t, std::ve
 // ---- replicas and chains -----------------------------------------------------------------------
 
 struct Replica {
-  std::vector<double> v;  // unit values in the model's convention
+  // Unit values in the model's convention. The uniform kernel updates only `small` and marks v
+  // stale; Engine::values() rewrites v when it is read (kept samples), so v is mutable.
+  mutable std::vector<double> v;
+  mutable bool stale = false;
   std::vector<double> H;  // local fields h_i + sum_j J_ij v_j
-  std::vector<std::int8_t> small;  // uniform couplings: v as small integers, then a 0 (padding)
+  std::vector<std::int32_t> small;  // uniform couplings: v by scan position, then a 0 (padding)
   double E = 0;
 };
 
@@ -102,8 +105,9 @@ struct Chain {
   // A sweep's (or one colour's) random bits and their generators, seeded from `rng`; uniform
   // couplings: per ladder slot the integer thresholds by neighbour sum (Engine::sweep_uniform).
   std::vector<std::uint64_t> draws;
-  FourLanes lanes{};
+  Lanes lanes{};
   std::vector<std::uint64_t> level_thresholds;
+  std::vector<std::uint32_t> threshold_high, threshold_low, words;  // the same, in 32-bit lanes
 };
 
 class Engine {
@@ -135,29 +139,34 @@ class Engine {
     // One coupling value K and one field value h0: H_k = h0 + K S_k with S_k the sum of the
     // neighbours' values, an integer in [-dmax, dmax], so the acceptance thresholds can be
     // tabulated by S_k. Used by the coloured scan and by the sequential scan (one "colour" of all
-    // units in order: a sweep's draws do not depend on the state, so they can come in one batch).
+    // units in order: a sweep's draws do not depend on the state, so they can come in one batch),
+    // when the padded neighbour table costs at most twice the CSR list.
     const Couplings& c = couplings_;
+    std::int64_t degree = 0;
+    for (std::int64_t k = 0; k < N_ && c.sparse; ++k)
+      degree = std::max(degree, c.offsets[std::size_t(k + 1)] - c.offsets[std::size_t(k)]);
     uniform_ = !random_scan_ && c.sparse && !c.value.empty() && N_ > 0 &&
+               N_ * degree <= 2 * std::int64_t(c.index.size()) &&
                std::all_of(c.value.begin(), c.value.end(), [&](double x) { return x == c.value[0]; }) &&
                (h_.array() == h_(0)).all();
     if (uniform_) {
       K_ = c.value[0];
       h0_ = h_(0);
-      for (std::int64_t k = 0; k < N_; ++k)
-        dmax_ = std::max(dmax_, c.offsets[std::size_t(k + 1)] - c.offsets[std::size_t(k)]);
-      // Neighbour table with dmax slots per unit, short rows padded with unit N (value 0), when
-      // that costs at most twice the CSR list: a fixed trip count and one index load per term.
-      const auto nnz = std::int64_t(c.index.size());
-      if (N_ * dmax_ <= 2 * nnz) {
-        padded_.assign(std::size_t(N_ * dmax_), std::int32_t(N_));
-        for (std::int64_t k = 0; k < N_; ++k)
-          for (auto p = c.offsets[std::size_t(k)]; p < c.offsets[std::size_t(k + 1)]; ++p)
-            padded_[std::size_t(k * dmax_ + (p - c.offsets[std::size_t(k)]))] = c.index[std::size_t(p)];
-      }
+      dmax_ = degree;
       if (!coloured_) {
         order_.resize(std::size_t(N_));
         for (std::int64_t k = 0; k < N_; ++k) order_[std::size_t(k)] = std::int32_t(k);
         colour_start_ = {0, N_};
+      }
+      // Neighbours by scan position: nb_[j * N + i] is the position of the j-th neighbour of the
+      // unit at position i; rows shorter than dmax point at position N (value 0).
+      std::vector<std::int32_t> position(static_cast<std::size_t>(N_));
+      for (std::int64_t i = 0; i < N_; ++i) position[std::size_t(order_[std::size_t(i)])] = std::int32_t(i);
+      nb_.assign(std::size_t(N_ * dmax_), std::int32_t(N_));
+      for (std::int64_t i = 0; i < N_; ++i) {
+        const std::int64_t k = order_[std::size_t(i)];
+        for (auto p = c.offsets[std::size_t(k)]; p < c.offsets[std::size_t(k + 1)]; ++p)
+          nb_[std::size_t((p - c.offsets[std::size_t(k)]) * N_ + i)] = position[std::size_t(c.index[std::size_t(p)])];
       }
     }
   }
@@ -202,8 +211,12 @@ class Engine {
     }
     for (auto& word : c.lanes.s)
       for (auto& lane : word) lane = c.rng.next();
-    c.draws.assign(std::size_t(N_ + 4), 0);
-    if (uniform_) c.level_thresholds = level_thresholds();
+    c.draws.assign(std::size_t(N_ + Lanes::kWidth), 0);
+    if (uniform_) {
+      c.level_thresholds = level_thresholds();
+      split_thresholds(c.level_thresholds, &c.threshold_high, &c.threshold_low);
+      c.words.assign(std::size_t(2 * (N_ + Lanes::kWidth)), 0);
+    }
     c.slot_flips.assign(K, 0);
     c.slot_updates.assign(K, 0);
     c.swap_tries.assign(K > 0 ? K - 1 : 0, 0);
@@ -235,22 +248,34 @@ class Engine {
   }
 
   /// Sets the replica to the given active bits (N of them) and recomputes its fields and energy.
+  /// The replica's unit values (by unit), brought up to date from the uniform kernel's copy.
+  const std::vector<double>& values(const Replica& r) const {
+    if (r.stale) {
+      for (std::int64_t i = 0; i < N_; ++i)
+        r.v[std::size_t(order_[std::size_t(i)])] = double(r.small[std::size_t(i)]);
+      r.stale = false;
+    }
+    return r.v;
+  }
+
   void load(Replica& r, const std::uint8_t* active) const {
     for (std::int64_t k = 0; k < N_; ++k) r.v[std::size_t(k)] = active[k] ? hi_ : lo_;
+    r.stale = false;
     refresh(r);
   }
 
   double magnetisation(const Replica& r) const {
     double s = 0;
-    for (double x : r.v) s += x;
+    for (double x : values(r)) s += x;
     return s / double(N_);
   }
 
  private:
   void refresh(Replica& r) const {
+    values(r);
     if (uniform_) {
       r.small.assign(std::size_t(N_ + 1), 0);
-      for (std::int64_t k = 0; k < N_; ++k) r.small[std::size_t(k)] = std::int8_t(r.v[std::size_t(k)]);
+      for (std::int64_t i = 0; i < N_; ++i) r.small[std::size_t(i)] = std::int32_t(r.v[std::size_t(order_[std::size_t(i)])]);
     }
     r.H.assign(std::size_t(N_), 0.0);
     if (couplings_.sparse) {
@@ -288,64 +313,75 @@ class Engine {
 
   /// Uniform couplings (one value K, one field h0), coloured or sequential scan. Each field is
   /// h0 + K S_k with S_k the sum of the neighbours' values, a small integer computed from the
-  /// int8 copy of the values; the test compares the draw's 53 bits with the tabulated integer
-  /// threshold for S_k: the double test u < p of heat_bath_threshold / metropolis_threshold
-  /// exactly, with no exp and no unpredictable branch. The random bits of a colour (the coloured
-  /// scan: its units are not coupled) or of the sweep (sequential: one "colour" in unit order)
-  /// come in one batch, as they do not depend on the state. The energy change sum_k -dv_k H_k is
-  /// accumulated as the integers sum dv_k and sum dv_k S_k (exact, no long floating-point chain).
+  /// int32 copy of the values held by scan position; the test compares the draw's 53 bits with
+  /// the tabulated integer threshold for S_k: the double test u < p of heat_bath_threshold /
+  /// metropolis_threshold exactly, with no exp and no unpredictable branch. The random bits of a
+  /// colour (the coloured scan: its units are not coupled, so update_uniform_colour runs them as
+  /// vectors) or of the sweep (sequential: one "colour" in unit order, one unit at a time) come
+  /// in one batch, as they do not depend on the state. The energy change sum_k -dv_k H_k is
+  /// accumulated as the integers sum dv_k and sum dv_k S_k (exact). v is rewritten from the copy
+  /// when next read (values()).
   template <bool kGibbs>
   std::int64_t sweep_uniform(Replica& r, std::size_t slot, Chain& c) const {
-    return padded_.empty() ? sweep_uniform_t<kGibbs, false>(r, slot, c) : sweep_uniform_t<kGibbs, true>(r, slot, c);
+    const std::int64_t levels = 2 * dmax_ + 1;
+    const std::size_t at = std::size_t(slot) * std::size_t(levels) * (kGibbs ? 1 : 2);
+    UniformSums sums;
+    if (coloured_) {
+      UniformColour a;
+      a.x = r.small.data();
+      a.nb = nb_.data();
+      a.stride = N_;
+      a.degree = dmax_;
+      a.words = c.words.data();
+      a.th = c.threshold_high.data() + at;
+      a.tl = c.threshold_low.data() + at;
+      a.lo = std::int32_t(lo_);
+      a.hi = std::int32_t(hi_);
+      a.gibbs = kGibbs;
+      for (std::size_t col = 0; col + 1 < colour_start_.size(); ++col) {
+        a.begin = colour_start_[col];
+        a.end = colour_start_[col + 1];
+        draw_lanes(c.lanes, c.words.data(), a.end - a.begin);
+        update_uniform_colour(a, sums);
+      }
+    } else {
+      sequential_uniform<kGibbs>(r.small.data(), c.level_thresholds.data() + at, c, sums);
+    }
+    r.stale = true;
+    r.E -= h0_ * double(sums.dv) + K_ * double(sums.dv_S);
+    return sums.flips;
   }
 
-  // Every array is reached through a local restrict pointer: the int8 stores could otherwise
-  // alias anything (char type), forcing reloads of every member in the loop.
-  template <bool kGibbs, bool kPadded>
-  std::int64_t sweep_uniform_t(Replica& r, std::size_t slot, Chain& c) const {
-    double* __restrict v = r.v.data();
-    std::int8_t* __restrict x = r.small.data();
-    const std::int64_t* __restrict off = couplings_.offsets.data();
-    const std::int32_t* __restrict idx = kPadded ? padded_.data() : couplings_.index.data();
-    const std::int32_t* __restrict order = order_.data();
-    const std::int64_t levels = 2 * dmax_ + 1, d = dmax_;
-    const std::uint64_t* __restrict table =
-        c.level_thresholds.data() + std::size_t(slot) * std::size_t(levels) * (kGibbs ? 1 : 2);
-    std::uint64_t* __restrict m = c.draws.data();
+  /// The sequential scan's uniform kernel: positions are units; each update sees the previous.
+  template <bool kGibbs>
+  void sequential_uniform(std::int32_t* __restrict x, const std::uint64_t* __restrict table, Chain& c,
+                          UniformSums& sums) const {
+    const std::int32_t* __restrict nb = nb_.data();
+    const std::uint64_t* __restrict m = c.draws.data();
+    const std::int64_t levels = 2 * dmax_ + 1, d = dmax_, n = N_;
     const std::int64_t lo = std::int64_t(lo_), hi = std::int64_t(hi_), both = lo + hi;
+    draw_lanes(c.lanes, c.draws.data(), n);
     std::int64_t flips = 0, sum_dv = 0, sum_dv_S = 0;
-    const std::size_t colours = colour_start_.size() - 1;
-    for (std::size_t col = 0; col < colours; ++col) {
-      const std::int64_t b = colour_start_[col], e = colour_start_[col + 1];
-      draw_four_lanes(c.lanes, m, e - b);
-      for (std::int64_t i = b; i < e; ++i) {
-        const std::int64_t k = order[i];
-        std::int64_t S = 0;
-        if constexpr (kPadded) {
-          for (std::int64_t p = k * d; p < k * d + d; ++p) S += x[idx[p]];
-        } else {
-          for (auto p = off[k]; p < off[k + 1]; ++p) S += x[idx[p]];
-        }
-        const std::int64_t old = x[k];
-        std::int64_t next;
-        if constexpr (kGibbs) {
-          const auto up = std::int64_t((m[i - b] >> 11) < table[S + d]);
-          next = lo + up * (hi - lo);
-        } else {
-          const std::int64_t row = levels * std::int64_t(old == hi);
-          const auto flip = std::int64_t((m[i - b] >> 11) < table[row + S + d]);
-          next = old + flip * (both - 2 * old);
-        }
-        const std::int64_t dv = next - old;
-        x[k] = std::int8_t(next);
-        v[k] = double(next);
-        sum_dv += dv;
-        sum_dv_S += dv * S;
-        flips += dv != 0;
+    for (std::int64_t i = 0; i < n; ++i) {
+      std::int64_t S = 0;
+      for (std::int64_t j = 0; j < d; ++j) S += x[nb[j * n + i]];
+      const std::int64_t old = x[i];
+      std::int64_t next;
+      if constexpr (kGibbs) {
+        next = lo + std::int64_t((m[i] >> 11) < table[S + d]) * (hi - lo);
+      } else {
+        const std::int64_t row = levels * std::int64_t(old == hi);
+        next = old + std::int64_t((m[i] >> 11) < table[row + S + d]) * (both - 2 * old);
       }
+      const std::int64_t dv = next - old;
+      x[i] = std::int32_t(next);
+      sum_dv += dv;
+      sum_dv_S += dv * S;
+      flips += dv != 0;
     }
-    r.E -= h0_ * double(sum_dv) + K_ * double(sum_dv_S);
-    return flips;
+    sums.dv += sum_dv;
+    sums.dv_S += sum_dv_S;
+    sums.flips += flips;
   }
 
   /// The general kernel. Update `step` of a sweep draws its uniform from the sweep's batch (one
@@ -358,7 +394,7 @@ class Engine {
     const double span = hi_ - lo_, both = hi_ + lo_;
     const AcceptanceTable& accept = acceptance_table();
     const std::uint64_t* draws = c.draws.data();
-    draw_four_lanes(c.lanes, c.draws.data(), N_);
+    draw_lanes(c.lanes, c.draws.data(), N_);
     std::int64_t flips = 0;
     double E = r.E;
     for (std::int64_t step = 0; step < N_; ++step) {
@@ -402,7 +438,7 @@ class Engine {
   std::string start_;
   Couplings couplings_;
   std::vector<double> ladder_, betas_;
-  std::vector<std::int32_t> padded_;        // uniform couplings: dmax neighbours per unit (or empty)
+  std::vector<std::int32_t> nb_;            // uniform couplings: neighbours by scan position
   std::vector<std::int32_t> order_;         // coloured scan: units grouped by colour
   std::vector<std::int64_t> colour_start_;  // start of each colour in order_, then N
 };
@@ -637,7 +673,8 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     magnetisation[std::size_t(row)] = engine.magnetisation(r);
     if (rq.keep_states) {
       std::uint8_t* out = bits.data() + row * N;
-      for (std::int64_t k = 0; k < N; ++k) out[k] = r.v[std::size_t(k)] != lo;
+      const std::vector<double>& v = engine.values(r);
+      for (std::int64_t k = 0; k < N; ++k) out[k] = v[std::size_t(k)] != lo;
     }
     if (rq.all_slot_energies)
       for (std::size_t s = 0; s < K; ++s) res.slot_energies[s][c].push_back(ch.replicas[ch.at_slot[s]].E);
@@ -695,7 +732,8 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     for (std::int64_t c = 0; c < C; ++c) {
       const Chain& ch = chains[std::size_t(c)];
       const Replica& r = ch.replicas[ch.at_slot[target]];
-      for (std::int64_t k = 0; k < N; ++k) st.active[std::size_t(c * N + k)] = r.v[std::size_t(k)] != lo;
+      const std::vector<double>& v = engine.values(r);
+      for (std::int64_t k = 0; k < N; ++k) st.active[std::size_t(c * N + k)] = v[std::size_t(k)] != lo;
     }
   }
   d.seconds = driver.elapsed();

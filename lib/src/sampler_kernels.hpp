@@ -1,8 +1,8 @@
 // Internal: the sampler's inner-loop kernels (sampler.cpp runs the chains).
 //
 // * add_scaled: the dense field update y += a x after a flip.
-// * FourLanes / draw_four_lanes: four xoshiro256** generators stepped together, so a sweep's
-//   random bits come in one vectorised batch.
+// * Lanes / draw_lanes: eight xoshiro256** generators stepped together, so a sweep's random
+//   bits come in one vectorised batch.
 // * AcceptanceTable: the heat-bath and Metropolis tests without exp on almost every update.
 // * Integer thresholds for the uniform-coupling kernel.
 // The wide kernels are built for AVX-512 and AVX2 as well as the baseline and chosen at load time
@@ -18,14 +18,18 @@ namespace spinfer::detail {
 /// y[j] += a x[j] for j in [0, n).
 void add_scaled(double* __restrict y, const double* __restrict x, double a, std::int64_t n);
 
-/// Four xoshiro256** generators (the algorithm of rng.hpp) stepped together. Lane l of step t
-/// gives out[4t + l]. Seeded from a chain's own stream, so the bits depend only on that chain.
-struct FourLanes {
-  std::uint64_t s[4][4];  // s[word][lane]
+/// Eight xoshiro256** generators (the algorithm of rng.hpp) stepped together (one AVX-512
+/// register per state word). Lane l of step t gives out[8t + l]. Seeded from a chain's own
+/// stream, so the bits depend only on that chain.
+struct Lanes {
+  static constexpr std::int64_t kWidth = 8;
+  std::uint64_t s[4][kWidth];  // s[word][lane]
 };
 
-/// Fills out[0, n) (n rounded up to a multiple of 4: `out` needs room for that) with random bits.
-void draw_four_lanes(FourLanes& g, std::uint64_t* out, std::int64_t n);
+/// Fills out[0, n) (n rounded up to a multiple of 8: `out` needs room for that) with random bits.
+void draw_lanes(Lanes& g, std::uint64_t* out, std::int64_t n);
+/// The same bits as 32-bit words: draw i is out[2i] (low half), out[2i + 1] (high half).
+void draw_lanes(Lanes& g, std::uint32_t* out, std::int64_t n);
 
 /// Uniform double in [0, 1) from the top 53 bits of a draw (as Rng::uniform).
 inline double to_uniform(std::uint64_t bits) { return double(bits >> 11) * 0x1.0p-53; }
@@ -94,5 +98,36 @@ std::uint64_t heat_bath_threshold(double x);
 
 /// Metropolis: accept iff y <= 0 or u < exp(-y).
 std::uint64_t metropolis_threshold(double y);
+
+// ---- uniform couplings, one colour at a time ---------------------------------------------------
+// The state is held as int32 values by scan position (x[N] = 0 pads short neighbour rows); the
+// neighbour positions of scan position i are nb[j * stride + i], j < degree. A 53-bit draw m
+// passes level L iff m < T_L; with m = high 2^21 + low (high: the draw's top 32 bits, low: the
+// next 21) and T_L = th 2^21 + tl (th capped at 2^32 - 1, so tl <= 2^21), that is
+// high < th || (high == th && low < tl): the same decision in 32-bit lanes.
+
+struct UniformColour {
+  std::int32_t* x = nullptr;
+  const std::int32_t* nb = nullptr;
+  std::int64_t stride = 0, degree = 0;
+  std::int64_t begin = 0, end = 0;     ///< scan positions of the colour (units not coupled)
+  const std::uint32_t* words = nullptr;  ///< 2 words per update (low, high half of a draw),
+                                         ///< from the colour's first update
+  const std::uint32_t* th = nullptr;   ///< [row][S + degree]: row = old value is high (Metropolis)
+  const std::uint32_t* tl = nullptr;
+  std::int32_t lo = 0, hi = 1;
+  bool gibbs = true;
+};
+
+struct UniformSums {
+  std::int64_t dv = 0, dv_S = 0, flips = 0;  ///< sum of value changes, of change x S, changes
+};
+
+/// Updates every position of the colour; adds to `sums`. Vectorised for degrees 2, 3, 4, 6, 8.
+void update_uniform_colour(const UniformColour& a, UniformSums& sums);
+
+/// Splits the 53-bit thresholds into the (th, tl) pairs of UniformColour.
+void split_thresholds(const std::vector<std::uint64_t>& t, std::vector<std::uint32_t>* th,
+                      std::vector<std::uint32_t>* tl);
 
 }  // namespace spinfer::detail
