@@ -16,10 +16,12 @@ numpy baselines, written to be as fast as numpy allows:
     the same on R = 16 lattices at once (one (R, L, L) array), which amortises numpy's per-call
     overhead and is the faster of the two.
 Threads: the 1-thread spinfer rows are compared with the numpy samplers in one process (their
-loops make no BLAS calls, so numpy runs on one core). The 2-thread rows are compared with the best
+loops make no BLAS calls, so numpy runs on one core; OpenBLAS is held at one thread). The 2-thread rows are compared with the best
 numpy sampler run in 2 processes at once (same core count for both), summing their updates.
 spinfer modes: the default (scan="sequential") and, on the lattice, scan="coloured" (the fastest
-mode there: colours of the coupling graph in turn, batched draws, exact tabulated thresholds).
+mode there: colours of the coupling graph in turn, each colour updated as vectors, batched draws,
+exact tabulated thresholds). The 1-thread rows run one chain; "vs numpy ..." rows repeat a
+spinfer rate against another numpy baseline for reference.
 Every spinfer run keeps one sample every 10 sweeps (the numpy baselines keep none).
 Prints JSON lines: {"name", "updates_per_second", "ratio", "cpu_ratio"} where ratio = spinfer /
 best numpy for that model in wall-clock time. On a shared machine wall-clock rates swing with the
@@ -31,11 +33,16 @@ Usage: python benchmarks/bench_sampler.py [--quick]
 import argparse
 import json
 import multiprocessing
+import os
 import time
 
-import numpy as np
+# The numpy samplers' loops make no BLAS calls; OpenBLAS worker threads left by the set-up
+# products would otherwise spin on the cores the spinfer runs use (seen in perf profiles).
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
-import spinfer
+import numpy as np  # noqa: E402
+
+import spinfer  # noqa: E402
 
 
 def sk_model(N, seed=0):
