@@ -214,7 +214,7 @@ def main():
     emit("lattice 64x64 numpy checkerboard, 16 lattices at once", npm, bestl)
     npl2 = timed_processes(numpy_checkerboard_many, (L, K, ls // 16, 16))
     emit("lattice 64x64 numpy checkerboard 16 lattices, 2 processes", npl2, npl2)
-    sweeps = 2000 if q else 20000
+    sweeps = 10000 if q else 100000  # long enough that the set-up (O(N^2) input) is small beside it
     for scan, label in [("sequential", "default scan=sequential"), ("coloured", "scan=coloured")]:
         r1, d = spinfer_rate(hl, Jl, sweeps, 1, 1, scan)
         emit(f"lattice 64x64 spinfer 1 thread ({label})", r1, bestl, cpu=(d["cpu_rate"], bestlc),
