@@ -31,9 +31,6 @@ void draw_lanes(Lanes& g, std::uint64_t* out, std::int64_t n);
 /// The same bits as 32-bit words: draw i is out[2i] (low half), out[2i + 1] (high half).
 void draw_lanes(Lanes& g, std::uint32_t* out, std::int64_t n);
 
-/// Uniform double in [0, 1) from the top 53 bits of a draw (as Rng::uniform).
-inline double to_uniform(std::uint64_t bits) { return double(bits >> 11) * 0x1.0p-53; }
-
 /// The acceptance tests of the single-unit updates, decided by brackets from a table:
 ///   heat bath   active iff u (1 + exp(-x)) < 1        (x = beta (hi - lo) H_k)
 ///   Metropolis  accept iff y <= 0 or u < exp(-y)      (y = beta dE)
