@@ -9,9 +9,19 @@ numpy baselines, written to be as fast as numpy allows:
     axpy per flip (the direct translation of the algorithm).
   * dense, many chains: the same sweep applied to R chains at once, so each Python step updates
     R units and the field update is an (R x N) rank-1 product: Python overhead is amortised.
-  * lattice: checkerboard updates, a whole sublattice at once with np.roll neighbour sums.
+  * dense, many chains, flipped rows only: as above with R = 256, but the field update touches
+    only the chains whose unit changed (H[rows] += delta[rows, None] * J[k]); about twice the
+    plain version's rate here, so it is the dense baseline to beat.
+  * lattice: checkerboard updates, a whole sublattice at once with np.roll neighbour sums; and
+    the same on R = 16 lattices at once (one (R, L, L) array), which amortises numpy's per-call
+    overhead and is the faster of the two.
+Threads: the 1-thread spinfer rows are compared with the numpy samplers in one process (their
+loops make no BLAS calls, so numpy runs on one core; OpenBLAS is held at one thread). The 2-thread rows are compared with the best
+numpy sampler run in 2 processes at once (same core count for both), summing their updates.
 spinfer modes: the default (scan="sequential") and, on the lattice, scan="coloured" (the fastest
-mode there: colours of the coupling graph in turn, batched draws, exact tabulated thresholds).
+mode there: colours of the coupling graph in turn, each colour updated as vectors, batched draws,
+exact tabulated thresholds). The 1-thread rows run one chain; "vs numpy ..." rows repeat a
+spinfer rate against another numpy baseline for reference.
 Every spinfer run keeps one sample every 10 sweeps (the numpy baselines keep none).
 Prints JSON lines: {"name", "updates_per_second", "ratio", "cpu_ratio"} where ratio = spinfer /
 best numpy for that model in wall-clock time. On a shared machine wall-clock rates swing with the
@@ -22,11 +32,17 @@ Usage: python benchmarks/bench_sampler.py [--quick]
 """
 import argparse
 import json
+import multiprocessing
+import os
 import time
 
-import numpy as np
+# The numpy samplers' loops make no BLAS calls; OpenBLAS worker threads left by the set-up
+# products would otherwise spin on the cores the spinfer runs use (seen in perf profiles).
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
-import spinfer
+import numpy as np  # noqa: E402
+
+import spinfer  # noqa: E402
 
 
 def sk_model(N, seed=0):
@@ -73,6 +89,33 @@ def numpy_dense_many_chains(J, sweeps, R, rng):
     return sweeps * N * R
 
 
+def numpy_dense_many_chains_flipped(J, sweeps, R, rng):
+    N = len(J)
+    S = rng.choice([-1.0, 1.0], (R, N))
+    H = S @ J
+    for _ in range(sweeps):
+        U = rng.random((N, R))
+        for k in range(N):
+            new = np.where(U[k] * (1.0 + np.exp(-2.0 * H[:, k])) < 1.0, 1.0, -1.0)
+            delta = new - S[:, k]
+            S[:, k] = new
+            rows = np.flatnonzero(delta)
+            H[rows] += delta[rows, None] * J[k]
+    return sweeps * N * R
+
+
+def numpy_checkerboard_many(L, K, sweeps, R, rng):
+    s = rng.choice([-1.0, 1.0], (R, L, L))
+    ii, jj = np.indices((L, L))
+    masks = [(ii + jj) % 2 == 0, (ii + jj) % 2 == 1]
+    for _ in range(sweeps):
+        for m in masks:
+            nb = np.roll(s, 1, 1) + np.roll(s, -1, 1) + np.roll(s, 1, 2) + np.roll(s, -1, 2)
+            p = 1.0 / (1.0 + np.exp(-2.0 * K * nb[:, m]))
+            s[:, m] = np.where(rng.random(p.shape) < p, 1.0, -1.0)
+    return sweeps * L * L * R
+
+
 def numpy_checkerboard(L, K, sweeps, rng):
     s = rng.choice([-1.0, 1.0], (L, L))
     ii, jj = np.indices((L, L))
@@ -90,6 +133,20 @@ def timed(f, *args):
     t0, c0 = time.perf_counter(), time.process_time()
     updates = f(*args)
     return updates / (time.perf_counter() - t0), updates / (time.process_time() - c0)
+
+
+def _run_in_child(job):
+    f, args, seed = job
+    return f(*args, np.random.default_rng(seed))
+
+
+def timed_processes(f, args, processes=2):
+    """Wall-clock rate of `processes` copies of a numpy baseline running at once (fork)."""
+    ctx = multiprocessing.get_context("fork")
+    with ctx.Pool(processes) as pool:
+        t0 = time.perf_counter()
+        updates = sum(pool.map(_run_in_child, [(f, args, p) for p in range(processes)]))
+        return updates / (time.perf_counter() - t0)
 
 
 def spinfer_rate(h, J, sweeps, chains, threads, scan="sequential"):
@@ -126,31 +183,47 @@ def main():
 
     # --- dense SK, N = 200 ---
     h, J = sk_model(200)
-    np1, np1c = timed(numpy_dense_one_chain, J, 5 if q else 20, rng)
-    npR, npRc = timed(numpy_dense_many_chains, J, 5 if q else 20, 64, rng)
-    best, bestc = max(np1, npR), max(np1c, npRc)
+    ds = 5 if q else 20
+    np1, np1c = timed(numpy_dense_one_chain, J, ds, rng)
+    npR, npRc = timed(numpy_dense_many_chains, J, ds, 64, rng)
+    npF, npFc = timed(numpy_dense_many_chains_flipped, J, ds, 256, rng)
+    best, bestc = max(np1, npR, npF), max(np1c, npRc, npFc)
     emit("dense N=200 numpy one chain", np1, best)
     emit("dense N=200 numpy 64 chains vectorised", npR, best)
+    emit("dense N=200 numpy 256 chains vectorised, flipped rows only", npF, best)
+    np2 = timed_processes(numpy_dense_many_chains_flipped, (J, ds, 256))
+    emit("dense N=200 numpy 256 chains flipped rows, 2 processes", np2, np2)
     sweeps = 20000 if q else 100000
     r1, d1 = spinfer_rate(h, J, sweeps, 1, 1)
     emit("dense N=200 spinfer 1 thread (default scan, also the fastest here)", r1, best,
          cpu=(d1["cpu_rate"], bestc), storage=d1["storage"], setup_seconds=d1["setup_seconds"])
-    r2, d = spinfer_rate(h, J, sweeps // 2, 4, 2)
-    emit("dense N=200 spinfer 2 threads (4 chains)", r2, best, storage=d["storage"])
+    emit("dense N=200 spinfer 1 thread vs numpy 64 chains", r1, npR, cpu=(d1["cpu_rate"], npRc))
     emit("dense N=200 spinfer 1 thread vs numpy one chain", r1, np1, cpu=(d1["cpu_rate"], np1c))
+    r2, d = spinfer_rate(h, J, sweeps // 2, 4, 2)
+    emit("dense N=200 spinfer 2 threads (4 chains) vs numpy 2 processes", r2, np2,
+         storage=d["storage"])
 
     # --- 64 x 64 periodic lattice ---
     L, K = 64, 0.4
     hl, Jl = lattice_model(L, K)
-    npc, npcc = timed(numpy_checkerboard, L, K, 100 if q else 500, rng)
-    emit("lattice 64x64 numpy checkerboard", npc, npc)
-    sweeps = 2000 if q else 20000
-    for scan, label in [("sequential", "default scan=sequential"), ("coloured", "fastest: scan=coloured")]:
+    ls = 100 if q else 500
+    npc, npcc = timed(numpy_checkerboard, L, K, ls, rng)
+    npm, npmc = timed(numpy_checkerboard_many, L, K, ls // 16, 16, rng)
+    bestl, bestlc = max(npc, npm), max(npcc, npmc)
+    emit("lattice 64x64 numpy checkerboard", npc, bestl)
+    emit("lattice 64x64 numpy checkerboard, 16 lattices at once", npm, bestl)
+    npl2 = timed_processes(numpy_checkerboard_many, (L, K, ls // 16, 16))
+    emit("lattice 64x64 numpy checkerboard 16 lattices, 2 processes", npl2, npl2)
+    sweeps = 10000 if q else 100000  # long enough that the set-up (O(N^2) input) is small beside it
+    for scan, label in [("sequential", "default scan=sequential"), ("coloured", "scan=coloured")]:
         r1, d = spinfer_rate(hl, Jl, sweeps, 1, 1, scan)
-        emit(f"lattice 64x64 spinfer 1 thread ({label})", r1, npc, cpu=(d["cpu_rate"], npcc),
+        emit(f"lattice 64x64 spinfer 1 thread ({label})", r1, bestl, cpu=(d["cpu_rate"], bestlc),
              storage=d["storage"], setup_seconds=d["setup_seconds"])
+        emit(f"lattice 64x64 spinfer 1 thread ({label}) vs numpy one lattice", r1, npc,
+             cpu=(d["cpu_rate"], npcc))
         r2, d = spinfer_rate(hl, Jl, sweeps // 2, 4, 2, scan)
-        emit(f"lattice 64x64 spinfer 2 threads, 4 chains ({label})", r2, npc, storage=d["storage"])
+        emit(f"lattice 64x64 spinfer 2 threads, 4 chains ({label}) vs numpy 2 processes", r2, npl2,
+             storage=d["storage"])
 
 
 if __name__ == "__main__":

@@ -10,6 +10,7 @@
 #include <sstream>
 
 #include "sampler_engine.hpp"
+#include "sampler_kernels.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/rng.hpp"
 #include "spinfer/threads.hpp"
@@ -19,15 +20,6 @@ namespace detail {
 namespace {
 
 // ---- couplings ---------------------------------------------------------------------------------
-
-// y += a x: the dense field update after a flip, where the time of a dense sweep goes. Built for
-// AVX2 as well as the baseline, chosen at load time, so portable binaries still use wide vectors.
-#if defined(__x86_64__) && defined(__GNUC__)
-__attribute__((target_clones("avx2", "default")))
-#endif
-void add_scaled(double* __restrict y, const double* __restrict x, double a, std::int64_t n) {
-  for (std::int64_t j = 0; j < n; ++j) y[j] += a * x[j];
-}
 
 struct Couplings {
   bool sparse = false;
@@ -66,108 +58,6 @@ Couplings make_couplings(const IsingModel& m, const std::string& storage, double
   return c;
 }
 
-// ---- acceptance tests ----------------------------------------------------------------------------
-// Both tests first compare u with bounds that need no exponential, from
-// 1 + a + a^2/2 <= e^a <= ... for a >= 0; only draws between the bounds evaluate exp. The answer
-// is the same as the plain test u < p (up to rounding of u at the boundary itself).
-
-/// Heat bath: true (unit active) with probability 1 / (1 + exp(-x)), given u uniform in [0, 1).
-inline bool heat_bath(double x, double u) {
-  const double a = std::abs(x);
-  const double q = 1.0 + a * (1.0 + 0.5 * a);  // q <= e^a, so q / (1 + q) <= sigma(a)
-  if (x >= 0) {
-    if (u * (1.0 + q) < q) return true;          // u < q/(1+q) <= sigma(x)
-  } else {
-    if (u * (1.0 + q) >= 1.0) return false;      // u >= 1/(1+q) >= sigma(x)
-  }
-  return u * (1.0 + std::exp(-x)) < 1.0;
-}
-
-/// Metropolis: true with probability exp(-y) for y > 0, given u uniform in [0, 1).
-inline bool metropolis(double y, double u) {
-  if (u < 1.0 - y) return true;                         // 1 - y <= e^-y
-  if (u * (1.0 + y * (1.0 + 0.5 * y)) >= 1.0) return false;  // e^-y <= 1/(1 + y + y^2/2)
-  return u < std::exp(-y);
-}
-
-// ---- exact integer thresholds for the coloured scan ------------------------------------------------
-// A uniform u = m 2^-53 (m the top 53 bits of a draw) passes a test "u < p" exactly when m < T for
-// one integer T, as the test (rounding included) is monotone in m. With one coupling value and one
-// field value the local field takes only 2 dmax + 1 values, so T is tabulated once per value.
-
-constexpr std::uint64_t kTwo53 = std::uint64_t(1) << 53;
-
-/// Smallest m in [0, 2^53] at which `pass(m)` stops holding; `pass` is true then false in m.
-template <typename Pass>
-std::uint64_t boundary(double guess, Pass pass) {
-  std::uint64_t m = guess <= 0 ? 0 : guess >= double(kTwo53) ? kTwo53 : std::uint64_t(guess);
-  while (m > 0 && !pass(m - 1)) --m;
-  while (m < kTwo53 && pass(m)) ++m;
-  return m;
-}
-
-/// Heat bath: active iff u (1 + exp(-x)) < 1, the same test as heat_bath() without the bounds.
-std::uint64_t heat_bath_threshold(double x) {
-  const double e = std::exp(-x);
-  return boundary(0x1.0p53 / (1.0 + e),
-                  [&](std::uint64_t m) { return double(m) * 0x1.0p-53 * (1.0 + e) < 1.0; });
-}
-
-/// Metropolis: accept iff y <= 0 or u < exp(-y).
-std::uint64_t metropolis_threshold(double y) {
-  if (y <= 0) return kTwo53;
-  const double p = std::exp(-y);
-  return boundary(p * 0x1.0p53, [&](std::uint64_t m) { return double(m) * 0x1.0p-53 < p; });
-}
-
-/// c ? a : b through bit masks: compilers turn a plain select into a branch, which is mispredicted
-/// about as often as the update changes a unit.
-inline double pick(bool c, double a, double b) {
-  std::uint64_t x, y;
-  std::memcpy(&x, &a, sizeof x);
-  std::memcpy(&y, &b, sizeof y);
-  const std::uint64_t mask = std::uint64_t(0) - std::uint64_t(c);
-  const std::uint64_t z = (x & mask) | (y & ~mask);
-  double out;
-  std::memcpy(&out, &z, sizeof out);
-  return out;
-}
-
-/// Four xoshiro256** generators (the algorithm of rng.hpp) stepped together, for the coloured
-/// scan's batches of random bits; written with vector extensions so the AVX2 clone steps all four
-/// in one register. Lane l of step t gives out[4t + l]. Seeded from the chain's own stream.
-struct FourLanes {
-  std::uint64_t s[4][4];  // s[word][lane]
-};
-
-#if defined(__x86_64__) && defined(__GNUC__)
-__attribute__((target_clones("avx2", "default")))
-#endif
-void draw_four_lanes(FourLanes& g, std::uint64_t* out, std::int64_t n) {
-  typedef std::uint64_t v4 __attribute__((vector_size(32)));
-  v4 s0, s1, s2, s3;
-  std::memcpy(&s0, g.s[0], 32);
-  std::memcpy(&s1, g.s[1], 32);
-  std::memcpy(&s2, g.s[2], 32);
-  std::memcpy(&s3, g.s[3], 32);
-  for (std::int64_t i = 0; i < n; i += 4) {
-    const v4 x = s1 * 5;
-    const v4 result = ((x << 7) | (x >> 57)) * 9;
-    const v4 t = s1 << 17;
-    s2 ^= s0;
-    s3 ^= s1;
-    s1 ^= s2;
-    s0 ^= s3;
-    s2 ^= t;
-    s3 = (s3 << 45) | (s3 >> 19);
-    std::memcpy(out + i, &result, 32);
-  }
-  std::memcpy(g.s[0], &s0, 32);
-  std::memcpy(g.s[1], &s1, 32);
-  std::memcpy(g.s[2], &s2, 32);
-  std::memcpy(g.s[3], &s3, 32);
-}
-
 /// Greedy colouring in unit order: each unit takes the smallest colour none of its earlier
 /// neighbours has. Returns the units grouped by colour (ascending within a colour) and the
 /// start of each colour in that list.
@@ -197,8 +87,12 @@ void colour_units(std::int64_t N, const std::function<void(std::int64_t, std::ve
 // ---- replicas and chains -----------------------------------------------------------------------
 
 struct Replica {
-  std::vector<double> v;  // unit values in the model's convention
+  // Unit values in the model's convention. The uniform kernel updates only `small` and marks v
+  // stale; Engine::values() rewrites v when it is read (kept samples), so v is mutable.
+  mutable std::vector<double> v;
+  mutable bool stale = false;
   std::vector<double> H;  // local fields h_i + sum_j J_ij v_j
+  std::vector<std::int32_t> small;  // uniform couplings: v by scan position, then a 0 (padding)
   double E = 0;
 };
 
@@ -208,11 +102,12 @@ struct Chain {
   std::vector<std::size_t> at_slot;  // ladder slot -> replica
   std::vector<std::int64_t> slot_flips, slot_updates, swap_tries, swap_accepts;
   std::int64_t steps = 0;
-  // Coloured scan, uniform couplings: one colour's random bits, their generators, and per ladder
-  // slot the integer thresholds by neighbour sum (see Engine::sweep_uniform).
+  // A sweep's (or one colour's) random bits and their generators, seeded from `rng`; uniform
+  // couplings: per ladder slot the integer thresholds by neighbour sum (Engine::sweep_uniform).
   std::vector<std::uint64_t> draws;
-  FourLanes lanes{};
+  Lanes lanes{};
   std::vector<std::uint64_t> level_thresholds;
+  std::vector<std::uint32_t> threshold_high, threshold_low, words;  // the same, in 32-bit lanes
 };
 
 class Engine {
@@ -240,17 +135,38 @@ class Engine {
             if (j != k && c.dense(j, k) != 0.0) nb.push_back(j);
         }
       }, &order_, &colour_start_);
-      // One coupling value K and one field value h0: H_k = h0 + K S_k with S_k the sum of the
-      // neighbours' values, an integer in [-dmax, dmax], so the acceptance thresholds can be
-      // tabulated by S_k.
-      uniform_ = c.sparse && !c.value.empty() && N_ > 0 &&
-                 std::all_of(c.value.begin(), c.value.end(), [&](double x) { return x == c.value[0]; }) &&
-                 (h_.array() == h_(0)).all();
-      if (uniform_) {
-        K_ = c.value[0];
-        h0_ = h_(0);
-        for (std::int64_t k = 0; k < N_; ++k)
-          dmax_ = std::max(dmax_, c.offsets[std::size_t(k + 1)] - c.offsets[std::size_t(k)]);
+    }
+    // One coupling value K and one field value h0: H_k = h0 + K S_k with S_k the sum of the
+    // neighbours' values, an integer in [-dmax, dmax], so the acceptance thresholds can be
+    // tabulated by S_k. Used by the coloured scan and by the sequential scan (one "colour" of all
+    // units in order: a sweep's draws do not depend on the state, so they can come in one batch),
+    // when the padded neighbour table costs at most twice the CSR list.
+    const Couplings& c = couplings_;
+    std::int64_t degree = 0;
+    for (std::int64_t k = 0; k < N_ && c.sparse; ++k)
+      degree = std::max(degree, c.offsets[std::size_t(k + 1)] - c.offsets[std::size_t(k)]);
+    uniform_ = !random_scan_ && c.sparse && !c.value.empty() && N_ > 0 &&
+               N_ * degree <= 2 * std::int64_t(c.index.size()) &&
+               std::all_of(c.value.begin(), c.value.end(), [&](double x) { return x == c.value[0]; }) &&
+               (h_.array() == h_(0)).all();
+    if (uniform_) {
+      K_ = c.value[0];
+      h0_ = h_(0);
+      dmax_ = degree;
+      if (!coloured_) {
+        order_.resize(std::size_t(N_));
+        for (std::int64_t k = 0; k < N_; ++k) order_[std::size_t(k)] = std::int32_t(k);
+        colour_start_ = {0, N_};
+      }
+      // Neighbours by scan position: nb_[j * N + i] is the position of the j-th neighbour of the
+      // unit at position i; rows shorter than dmax point at position N (value 0).
+      std::vector<std::int32_t> position(static_cast<std::size_t>(N_));
+      for (std::int64_t i = 0; i < N_; ++i) position[std::size_t(order_[std::size_t(i)])] = std::int32_t(i);
+      nb_.assign(std::size_t(N_ * dmax_), std::int32_t(N_));
+      for (std::int64_t i = 0; i < N_; ++i) {
+        const std::int64_t k = order_[std::size_t(i)];
+        for (auto p = c.offsets[std::size_t(k)]; p < c.offsets[std::size_t(k + 1)]; ++p)
+          nb_[std::size_t((p - c.offsets[std::size_t(k)]) * N_ + i)] = position[std::size_t(c.index[std::size_t(p)])];
       }
     }
   }
@@ -275,8 +191,6 @@ class Engine {
     return t;
   }
 
-  std::int64_t colours() const { return coloured_ ? std::int64_t(colour_start_.size()) - 1 : 0; }
-
   std::int64_t units() const { return N_; }
   std::size_t slots() const { return ladder_.size(); }
   const Couplings& couplings() const { return couplings_; }
@@ -295,11 +209,13 @@ class Engine {
       refresh(rep);
       c.at_slot.push_back(r);
     }
+    for (auto& word : c.lanes.s)
+      for (auto& lane : word) lane = c.rng.next();
+    c.draws.assign(std::size_t(N_ + Lanes::kWidth), 0);
     if (uniform_) {
-      for (auto& word : c.lanes.s)
-        for (auto& lane : word) lane = c.rng.next();
       c.level_thresholds = level_thresholds();
-      c.draws.assign(std::size_t(N_ + 4), 0);
+      split_thresholds(c.level_thresholds, &c.threshold_high, &c.threshold_low);
+      c.words.assign(std::size_t(2 * (N_ + Lanes::kWidth)), 0);
     }
     c.slot_flips.assign(K, 0);
     c.slot_updates.assign(K, 0);
@@ -332,19 +248,35 @@ class Engine {
   }
 
   /// Sets the replica to the given active bits (N of them) and recomputes its fields and energy.
+  /// The replica's unit values (by unit), brought up to date from the uniform kernel's copy.
+  const std::vector<double>& values(const Replica& r) const {
+    if (r.stale) {
+      for (std::int64_t i = 0; i < N_; ++i)
+        r.v[std::size_t(order_[std::size_t(i)])] = double(r.small[std::size_t(i)]);
+      r.stale = false;
+    }
+    return r.v;
+  }
+
   void load(Replica& r, const std::uint8_t* active) const {
     for (std::int64_t k = 0; k < N_; ++k) r.v[std::size_t(k)] = active[k] ? hi_ : lo_;
+    r.stale = false;
     refresh(r);
   }
 
   double magnetisation(const Replica& r) const {
     double s = 0;
-    for (double x : r.v) s += x;
+    for (double x : values(r)) s += x;
     return s / double(N_);
   }
 
  private:
   void refresh(Replica& r) const {
+    values(r);
+    if (uniform_) {
+      r.small.assign(std::size_t(N_ + 1), 0);
+      for (std::int64_t i = 0; i < N_; ++i) r.small[std::size_t(i)] = std::int32_t(r.v[std::size_t(order_[std::size_t(i)])]);
+    }
     r.H.assign(std::size_t(N_), 0.0);
     if (couplings_.sparse) {
       for (std::int64_t k = 0; k < N_; ++k) {
@@ -364,84 +296,121 @@ class Engine {
   }
 
   std::int64_t sweep(Replica& r, double beta, std::size_t slot, Chain& c) const {
-    Rng& rng = c.rng;
     // Dispatch once per sweep so the inner loop is specialised.
+    if (uniform_) return gibbs_ ? sweep_uniform<true>(r, slot, c) : sweep_uniform<false>(r, slot, c);
     if (coloured_) {
-      if (uniform_) return gibbs_ ? sweep_uniform<true>(r, slot, c) : sweep_uniform<false>(r, slot, c);
       if (couplings_.sparse)
-        return gibbs_ ? sweep_t<true, true, false, true>(r, beta, rng) : sweep_t<true, false, false, true>(r, beta, rng);
-      return gibbs_ ? sweep_t<false, true, false, true>(r, beta, rng) : sweep_t<false, false, false, true>(r, beta, rng);
+        return gibbs_ ? sweep_t<true, true, false, true>(r, beta, c) : sweep_t<true, false, false, true>(r, beta, c);
+      return gibbs_ ? sweep_t<false, true, false, true>(r, beta, c) : sweep_t<false, false, false, true>(r, beta, c);
     }
     if (couplings_.sparse) {
-      if (gibbs_) return random_scan_ ? sweep_t<true, true, true>(r, beta, rng) : sweep_t<true, true, false>(r, beta, rng);
-      return random_scan_ ? sweep_t<true, false, true>(r, beta, rng) : sweep_t<true, false, false>(r, beta, rng);
+      if (gibbs_) return random_scan_ ? sweep_t<true, true, true>(r, beta, c) : sweep_t<true, true, false>(r, beta, c);
+      return random_scan_ ? sweep_t<true, false, true>(r, beta, c) : sweep_t<true, false, false>(r, beta, c);
     }
-    if (gibbs_) return random_scan_ ? sweep_t<false, true, true>(r, beta, rng) : sweep_t<false, true, false>(r, beta, rng);
-    return random_scan_ ? sweep_t<false, false, true>(r, beta, rng) : sweep_t<false, false, false>(r, beta, rng);
+    if (gibbs_) return random_scan_ ? sweep_t<false, true, true>(r, beta, c) : sweep_t<false, true, false>(r, beta, c);
+    return random_scan_ ? sweep_t<false, false, true>(r, beta, c) : sweep_t<false, false, false>(r, beta, c);
   }
 
-  /// Coloured scan, uniform couplings (one value K, one field h0). Units of one colour are not
-  /// coupled, so each field is fixed while its colour is updated: the colour's random bits come
-  /// in one batch from four generators stepped together, each field is h0 + K S_k with S_k the
-  /// sum of the neighbours' values (exact: a small integer), and the test compares the draw's 53
-  /// bits with the tabulated integer threshold for S_k. That is the double test u < p of
-  /// heat_bath_threshold / metropolis_threshold exactly, with no exp and no unpredictable branch.
+  /// Uniform couplings (one value K, one field h0), coloured or sequential scan. Each field is
+  /// h0 + K S_k with S_k the sum of the neighbours' values, a small integer computed from the
+  /// int32 copy of the values held by scan position; the test compares the draw's 53 bits with
+  /// the tabulated integer threshold for S_k: the double test u < p of heat_bath_threshold /
+  /// metropolis_threshold exactly, with no exp and no unpredictable branch. The random bits of a
+  /// colour (the coloured scan: its units are not coupled, so update_uniform_colour runs them as
+  /// vectors) or of the sweep (sequential: one "colour" in unit order, one unit at a time) come
+  /// in one batch, as they do not depend on the state. The energy change sum_k -dv_k H_k is
+  /// accumulated as the integers sum dv_k and sum dv_k S_k (exact). v is rewritten from the copy
+  /// when next read (values()).
   template <bool kGibbs>
   std::int64_t sweep_uniform(Replica& r, std::size_t slot, Chain& c) const {
-    double* v = r.v.data();
-    const std::int64_t* off = couplings_.offsets.data();
-    const std::int32_t* idx = couplings_.index.data();
     const std::int64_t levels = 2 * dmax_ + 1;
-    const std::uint64_t* table = c.level_thresholds.data() + std::size_t(slot) * std::size_t(levels) * (kGibbs ? 1 : 2);
-    std::uint64_t* m = c.draws.data();
-    const double both = hi_ + lo_;
-    std::int64_t flips = 0;
-    double E = r.E;
-    for (std::size_t col = 0; col + 1 < colour_start_.size(); ++col) {
-      const std::int64_t b = colour_start_[col], e = colour_start_[col + 1];
-      draw_four_lanes(c.lanes, m, e - b);
-      for (std::int64_t i = b; i < e; ++i) {
-        const std::int32_t k = order_[std::size_t(i)];
-        double S = 0;
-        for (auto p = off[k]; p < off[k + 1]; ++p) S += v[idx[p]];
-        const auto level = std::int64_t(S) + dmax_;
-        const double old = v[k];
-        double next;
-        if constexpr (kGibbs) {
-          next = pick((m[i - b] >> 11) < table[level], hi_, lo_);
-        } else {
-          const std::int64_t row = levels * std::int64_t(old == hi_);
-          next = pick((m[i - b] >> 11) < table[row + level], both - old, old);
-        }
-        v[k] = next;
-        E -= (next - old) * (h0_ + K_ * S);
-        flips += next != old;
+    const std::size_t at = std::size_t(slot) * std::size_t(levels) * (kGibbs ? 1 : 2);
+    UniformSums sums;
+    if (coloured_) {
+      UniformColour a;
+      a.x = r.small.data();
+      a.nb = nb_.data();
+      a.stride = N_;
+      a.degree = dmax_;
+      a.words = c.words.data();
+      a.th = c.threshold_high.data() + at;
+      a.tl = c.threshold_low.data() + at;
+      a.lo = std::int32_t(lo_);
+      a.hi = std::int32_t(hi_);
+      a.gibbs = kGibbs;
+      for (std::size_t col = 0; col + 1 < colour_start_.size(); ++col) {
+        a.begin = colour_start_[col];
+        a.end = colour_start_[col + 1];
+        draw_lanes(c.lanes, c.words.data(), a.end - a.begin);
+        update_uniform_colour(a, sums);
       }
+    } else {
+      sequential_uniform<kGibbs>(r.small.data(), c.level_thresholds.data() + at, c, sums);
     }
-    r.E = E;
-    return flips;
+    r.stale = true;
+    r.E -= h0_ * double(sums.dv) + K_ * double(sums.dv_S);
+    return sums.flips;
   }
 
+  /// The sequential scan's uniform kernel: positions are units; each update sees the previous.
+  template <bool kGibbs>
+  void sequential_uniform(std::int32_t* __restrict x, const std::uint64_t* __restrict table, Chain& c,
+                          UniformSums& sums) const {
+    const std::int32_t* __restrict nb = nb_.data();
+    const std::uint64_t* __restrict m = c.draws.data();
+    const std::int64_t levels = 2 * dmax_ + 1, d = dmax_, n = N_;
+    const std::int64_t lo = std::int64_t(lo_), hi = std::int64_t(hi_), both = lo + hi;
+    draw_lanes(c.lanes, c.draws.data(), n);
+    std::int64_t flips = 0, sum_dv = 0, sum_dv_S = 0;
+    for (std::int64_t i = 0; i < n; ++i) {
+      std::int64_t S = 0;
+      for (std::int64_t j = 0; j < d; ++j) S += x[nb[j * n + i]];
+      const std::int64_t old = x[i];
+      std::int64_t next;
+      if constexpr (kGibbs) {
+        next = lo + std::int64_t((m[i] >> 11) < table[S + d]) * (hi - lo);
+      } else {
+        const std::int64_t row = levels * std::int64_t(old == hi);
+        next = old + std::int64_t((m[i] >> 11) < table[row + S + d]) * (both - 2 * old);
+      }
+      const std::int64_t dv = next - old;
+      x[i] = std::int32_t(next);
+      sum_dv += dv;
+      sum_dv_S += dv * S;
+      flips += dv != 0;
+    }
+    sums.dv += sum_dv;
+    sums.dv_S += sum_dv_S;
+    sums.flips += flips;
+  }
+
+  /// The general kernel. Update `step` of a sweep draws its uniform from the sweep's batch (one
+  /// per update, drawn up front: they do not depend on the state; Metropolis leaves the draw of
+  /// an update with dE <= 0 unused), and decides through the acceptance table (exact tests).
   template <bool kSparse, bool kGibbs, bool kRandom, bool kOrdered = false>
-  std::int64_t sweep_t(Replica& r, double beta, Rng& rng) const {
+  std::int64_t sweep_t(Replica& r, double beta, Chain& c) const {
     double* v = r.v.data();
     double* H = r.H.data();
     const double span = hi_ - lo_, both = hi_ + lo_;
+    const AcceptanceTable& accept = acceptance_table();
+    const std::uint64_t* draws = c.draws.data();
+    draw_lanes(c.lanes, c.draws.data(), N_);
     std::int64_t flips = 0;
     double E = r.E;
     for (std::int64_t step = 0; step < N_; ++step) {
-      const std::int64_t k = kRandom ? std::int64_t(rng.below(std::uint64_t(N_)))
+      const std::int64_t k = kRandom ? std::int64_t(c.rng.below(std::uint64_t(N_)))
                              : kOrdered ? std::int64_t(order_[std::size_t(step)]) : step;
       const double Hk = H[k];
-      double delta;  // new value - old value, 0 when unchanged
+      const std::uint64_t u = draws[step] >> 11;  // 53 bits: the uniform is u 2^-53
+      // delta = new value - old value, 0 when unchanged; selected by arithmetic, not branches.
+      double delta;
       if constexpr (kGibbs) {
         // Heat bath: P(active | rest) = 1 / (1 + exp(-x)), x = beta (hi - lo) H_k.
-        const double next = heat_bath(beta * span * Hk, rng.uniform()) ? hi_ : lo_;
-        delta = next - v[k];
+        const double active = double(accept.heat_bath(beta * span * Hk, u));
+        delta = lo_ + active * span - v[k];
       } else {
         const double d = both - 2.0 * v[k];  // the flip
-        const double dE = -d * Hk;
-        delta = (dE <= 0.0 || metropolis(beta * dE, rng.uniform())) ? d : 0.0;
+        delta = double(accept.metropolis(-beta * d * Hk, u)) * d;
       }
       if (delta != 0.0) {
         ++flips;
@@ -469,6 +438,7 @@ class Engine {
   std::string start_;
   Couplings couplings_;
   std::vector<double> ladder_, betas_;
+  std::vector<std::int32_t> nb_;            // uniform couplings: neighbours by scan position
   std::vector<std::int32_t> order_;         // coloured scan: units grouped by colour
   std::vector<std::int64_t> colour_start_;  // start of each colour in order_, then N
 };
@@ -703,7 +673,8 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     magnetisation[std::size_t(row)] = engine.magnetisation(r);
     if (rq.keep_states) {
       std::uint8_t* out = bits.data() + row * N;
-      for (std::int64_t k = 0; k < N; ++k) out[k] = r.v[std::size_t(k)] != lo;
+      const std::vector<double>& v = engine.values(r);
+      for (std::int64_t k = 0; k < N; ++k) out[k] = v[std::size_t(k)] != lo;
     }
     if (rq.all_slot_energies)
       for (std::size_t s = 0; s < K; ++s) res.slot_energies[s][c].push_back(ch.replicas[ch.at_slot[s]].E);
@@ -761,7 +732,8 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     for (std::int64_t c = 0; c < C; ++c) {
       const Chain& ch = chains[std::size_t(c)];
       const Replica& r = ch.replicas[ch.at_slot[target]];
-      for (std::int64_t k = 0; k < N; ++k) st.active[std::size_t(c * N + k)] = r.v[std::size_t(k)] != lo;
+      const std::vector<double>& v = engine.values(r);
+      for (std::int64_t k = 0; k < N; ++k) st.active[std::size_t(c * N + k)] = v[std::size_t(k)] != lo;
     }
   }
   d.seconds = driver.elapsed();

@@ -370,23 +370,25 @@ TEST_CASE("sampler: coloured scan matches exact enumeration on graphs with sever
       }
 }
 
-TEST_CASE("sampler: coloured scan, uniform binary lattice with a field: enumeration and reproducibility") {
-  // One coupling value and one field value: the batched kernel with tabulated thresholds, here
-  // with neighbour sums S in [0, 4] (binary) and a field.
+TEST_CASE("sampler: uniform binary lattice with a field, coloured and sequential: enumeration and reproducibility") {
+  // One coupling value and one field value: the batched kernel with tabulated thresholds (used by
+  // the coloured scan and, in unit order, by the sequential scan), here with neighbour sums S in
+  // [0, 4] (binary) and a field.
   IsingModel m = torus(4, 0.5);
   m.convention = Convention::binary;
   m.fields = Eigen::VectorXd::Constant(16, -1.0);
   const Exact x = enumerate(m, 1.0);
+  for (const char* scan : {"coloured", "sequential"})
   for (const char* method : {"gibbs", "metropolis"}) {
-    INFO(method);
+    INFO(scan << " " << method);
     SamplerOptions o;
     o.samples = 40000;
     o.seed = 15;
     o.threads = 2;
-    o.scan = "coloured";
+    o.scan = scan;
     o.method = method;
     o.storage = "sparse";
-    check_against_exact(model_statistics(m, o), x, "coloured binary lattice");
+    check_against_exact(model_statistics(m, o), x, "uniform binary lattice");
     // Same seed, any thread count, with and without tempering: identical samples.
     o.samples = 600;
     for (bool tempering : {false, true}) {

@@ -13,14 +13,19 @@
 // a neighbour j < k) and a sweep visits the colours in turn, each colour's units in ascending
 // order. That is a fixed systematic scan like "sequential" (same stationary distribution P_T, a
 // different update order, so different samples from the same seed; reproducible for any thread
-// count like the others). Fast path: CSR storage with a single coupling value K and a single
-// field value h (lattices, regular graphs): units of one colour are not coupled, so their fields
-// stay fixed while the colour is updated; the colour's random numbers are drawn in one batch from
-// four xoshiro256** generators stepped together (seeded from the chain's stream), each field is
-// h + K S with S the (integer) sum of the neighbours' values, and u < p is decided by comparing
-// the 53 random bits of u with an integer threshold tabulated by S: the same decision as the
-// double test, without exp or unpredictable branches. Other models: the ordered scan with the
-// usual kernels (on a dense model every unit gets its own colour, so it is "sequential").
+// count like the others).
+// Random numbers and tests: a sweep's (or one colour's) uniforms are drawn up front in one batch
+// from eight xoshiro256** generators stepped together (seeded from the chain's stream; the draws
+// do not depend on the state), and the acceptance tests are decided from tabulated brackets of
+// the logistic / exponential function, evaluating exp only for draws inside a bracket: the same
+// decisions as the plain double tests, so the chain is exact. Fast path for the sequential and
+// coloured scans: CSR storage with a single coupling value K and a single field value h
+// (lattices, regular graphs): each field is h + K S with S the (integer) sum of the neighbours'
+// values, read from an int32 copy of the state, and u < p is decided by comparing the 53 random
+// bits of u with an integer threshold tabulated by S: the same decision as the double test,
+// without exp or unpredictable branches. Units of one colour are not coupled, so the coloured
+// scan updates a colour as vectors (AVX-512 / AVX2 when the CPU has them); on a dense model every
+// unit gets its own colour, so "coloured" is "sequential" there.
 // Couplings are held dense (one contiguous column per unit) or as a CSR neighbour list; "auto"
 // takes the list when fewer than `sparse_density_threshold` of the off-diagonal couplings are
 // non-zero. The choice is reported.

@@ -1,0 +1,202 @@
+// The sampler's inner-loop kernels; see sampler_kernels.hpp.
+#include "sampler_kernels.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <cstring>
+
+namespace spinfer::detail {
+
+#if defined(__x86_64__) && defined(__GNUC__)
+#define SPINFER_WIDE_CLONES __attribute__((target_clones("avx512f", "avx2", "default")))
+#else
+#define SPINFER_WIDE_CLONES
+#endif
+
+SPINFER_WIDE_CLONES
+void add_scaled(double* __restrict y, const double* __restrict x, double a, std::int64_t n) {
+  for (std::int64_t j = 0; j < n; ++j) y[j] += a * x[j];
+}
+
+namespace {
+
+template <typename Word>
+[[gnu::always_inline]] inline void step_lanes(Lanes& g, Word* out, std::int64_t n) {
+  typedef std::uint64_t v8 __attribute__((vector_size(64)));
+  v8 s0, s1, s2, s3;
+  std::memcpy(&s0, g.s[0], 64);
+  std::memcpy(&s1, g.s[1], 64);
+  std::memcpy(&s2, g.s[2], 64);
+  std::memcpy(&s3, g.s[3], 64);
+  for (std::int64_t i = 0; i < n; i += 8) {
+    const v8 x = s1 * 5;
+    const v8 result = ((x << 7) | (x >> 57)) * 9;
+    const v8 t = s1 << 17;
+    s2 ^= s0;
+    s3 ^= s1;
+    s1 ^= s2;
+    s0 ^= s3;
+    s2 ^= t;
+    s3 = (s3 << 45) | (s3 >> 19);
+    std::memcpy(out + i * (8 / std::int64_t(sizeof(Word))), &result, 64);
+  }
+  std::memcpy(g.s[0], &s0, 64);
+  std::memcpy(g.s[1], &s1, 64);
+  std::memcpy(g.s[2], &s2, 64);
+  std::memcpy(g.s[3], &s3, 64);
+}
+
+// One colour of the uniform kernel. The positions of a colour are not coupled, so the iterations
+// are independent (ivdep): gathers of the neighbours' values, a branch-free 32-bit test, and
+// 32-bit sums over chunks short enough not to overflow (|dv S| <= 2 x 8 per update here).
+template <bool kGibbs, int D>
+[[gnu::always_inline]] inline void colour_loop(const UniformColour& a, UniformSums& sums) {
+  std::int32_t* __restrict x = a.x;
+  const std::int32_t* __restrict nb = a.nb;
+  const std::uint32_t* __restrict w = a.words;
+  const std::uint32_t* __restrict th = a.th;
+  const std::uint32_t* __restrict tl = a.tl;
+  const std::int64_t stride = a.stride;
+  const std::int32_t lo = a.lo, hi = a.hi, both = lo + hi, levels = 2 * D + 1;
+  for (std::int64_t begin = a.begin; begin < a.end; begin += std::int64_t(1) << 24) {
+    const std::int64_t end = std::min(a.end, begin + (std::int64_t(1) << 24));
+    std::int32_t dv_sum = 0, dvS_sum = 0, flip_sum = 0;
+#pragma GCC ivdep
+    for (std::int64_t i = begin; i < end; ++i) {
+      std::int32_t S = 0;
+      for (int j = 0; j < D; ++j) S += x[nb[j * stride + i]];
+      const std::int32_t old = x[i];
+      const std::int64_t t = i - a.begin;
+      const std::uint32_t high = w[2 * t + 1], low = w[2 * t] >> 11;
+      const std::int32_t level = (kGibbs ? 0 : levels * std::int32_t(old == hi)) + S + D;
+      const std::int32_t pass = std::int32_t(high < th[level]) | (std::int32_t(high == th[level]) & std::int32_t(low < tl[level]));
+      const std::int32_t next = kGibbs ? lo + pass * (hi - lo) : old + pass * (both - 2 * old);
+      const std::int32_t dv = next - old;
+      x[i] = next;
+      dv_sum += dv;
+      dvS_sum += dv * S;
+      flip_sum += std::int32_t(dv != 0);
+    }
+    sums.dv += dv_sum;
+    sums.dv_S += dvS_sum;
+    sums.flips += flip_sum;
+  }
+}
+
+template <bool kGibbs>
+[[gnu::always_inline]] inline bool colour_by_degree(const UniformColour& a, UniformSums& sums) {
+  switch (a.degree) {
+    case 2: colour_loop<kGibbs, 2>(a, sums); return true;
+    case 3: colour_loop<kGibbs, 3>(a, sums); return true;
+    case 4: colour_loop<kGibbs, 4>(a, sums); return true;
+    case 6: colour_loop<kGibbs, 6>(a, sums); return true;
+    case 8: colour_loop<kGibbs, 8>(a, sums); return true;
+    default: return false;
+  }
+}
+
+}  // namespace
+
+SPINFER_WIDE_CLONES
+void draw_lanes(Lanes& g, std::uint64_t* out, std::int64_t n) { step_lanes(g, out, n); }
+
+SPINFER_WIDE_CLONES
+void draw_lanes(Lanes& g, std::uint32_t* out, std::int64_t n) { step_lanes(g, out, n); }
+
+SPINFER_WIDE_CLONES
+void update_uniform_colour(const UniformColour& a, UniformSums& sums) {
+  if (a.gibbs ? colour_by_degree<true>(a, sums) : colour_by_degree<false>(a, sums)) return;
+  // Other degrees: the same decisions, one position at a time.
+  const std::int64_t levels = 2 * a.degree + 1;
+  for (std::int64_t i = a.begin; i < a.end; ++i) {
+    std::int64_t S = 0;
+    for (std::int64_t j = 0; j < a.degree; ++j) S += a.x[a.nb[j * a.stride + i]];
+    const std::int32_t old = a.x[i];
+    const std::int64_t t = i - a.begin;
+    const std::uint32_t high = a.words[2 * t + 1], low = a.words[2 * t] >> 11;
+    const std::int64_t level = (a.gibbs ? 0 : levels * std::int64_t(old == a.hi)) + S + a.degree;
+    const bool pass = high < a.th[level] || (high == a.th[level] && low < a.tl[level]);
+    const std::int32_t next = a.gibbs ? (pass ? a.hi : a.lo) : (pass ? a.lo + a.hi - old : old);
+    a.x[i] = next;
+    sums.dv += next - old;
+    sums.dv_S += (next - old) * S;
+    sums.flips += next != old;
+  }
+}
+
+void split_thresholds(const std::vector<std::uint64_t>& t, std::vector<std::uint32_t>* th,
+                      std::vector<std::uint32_t>* tl) {
+  th->clear();
+  tl->clear();
+  for (std::uint64_t T : t) {
+    const std::uint64_t high = std::min<std::uint64_t>(T >> 21, 0xffffffffu);
+    th->push_back(std::uint32_t(high));
+    tl->push_back(std::uint32_t(T - (high << 21)));  // <= 2^21
+  }
+}
+
+bool AcceptanceTable::exact_heat_bath(double x, std::uint64_t m) {
+  return double(m) * 0x1.0p-53 * (1.0 + std::exp(-x)) < 1.0;
+}
+
+bool AcceptanceTable::exact_metropolis(double y, std::uint64_t m) {
+  return y <= 0.0 || double(m) * 0x1.0p-53 < std::exp(-y);
+}
+
+AcceptanceTable::AcceptanceTable() {
+  // Relative widening of every bound: far beyond the exact tests' rounding (a few 2^-53) and the
+  // rounding of the cell index, far below anything a draw resolves in practice.
+  constexpr double widen = 0x1.0p-40;
+  auto logistic = [](std::int64_t i) { return 1.0 / (1.0 + std::exp(-(-kRange + double(i) / kPerUnit))); };
+  auto decay = [](std::int64_t i) { return std::exp(-double(i) / kPerUnit); };
+  // Heat bath: cell 0 is x < -kRange, cell c in [1, kCells] is [x_(c-1), x_c), cell kCells + 1
+  // is x >= kRange, with x_i = -kRange + i / kPerUnit.
+  // A probability bound p as a draw count: u = m 2^-53 < p iff m < ceil(p 2^53).
+  auto count = [](double p) { return std::uint64_t(std::ceil(std::min(p, 1.0) * 0x1.0p53)); };
+  auto bracket = [&](double lower, double upper) {
+    return Bracket{count(lower * (1 - widen)), count(upper * (1 + widen))};
+  };
+  logistic_.push_back(bracket(0.0, logistic(0)));
+  for (std::int64_t c = 1; c <= kCells; ++c) logistic_.push_back(bracket(logistic(c - 1), logistic(c)));
+  logistic_.push_back(bracket(logistic(kCells), 1.0));
+  // Metropolis: cell c in [0, kCells) is [y_c, y_(c+1)), cell kCells is y >= 2 kRange, with
+  // y_i = i / kPerUnit; exp(-y) decreases, so the lower value comes from the cell's right end.
+  for (std::int64_t c = 0; c < kCells; ++c) decay_.push_back(bracket(decay(c + 1), decay(c)));
+  decay_.push_back(bracket(0.0, decay(kCells)));
+}
+
+const AcceptanceTable& acceptance_table() {
+  static const AcceptanceTable table;
+  return table;
+}
+
+// ---- integer thresholds --------------------------------------------------------------------------
+
+namespace {
+
+constexpr std::uint64_t kTwo53 = std::uint64_t(1) << 53;
+
+/// Smallest m in [0, 2^53] at which `pass(m)` stops holding; `pass` is true then false in m.
+template <typename Pass>
+std::uint64_t boundary(double guess, Pass pass) {
+  std::uint64_t m = guess <= 0 ? 0 : guess >= double(kTwo53) ? kTwo53 : std::uint64_t(guess);
+  while (m > 0 && !pass(m - 1)) --m;
+  while (m < kTwo53 && pass(m)) ++m;
+  return m;
+}
+
+}  // namespace
+
+std::uint64_t heat_bath_threshold(double x) {
+  const double e = std::exp(-x);
+  return boundary(0x1.0p53 / (1.0 + e),
+                  [&](std::uint64_t m) { return double(m) * 0x1.0p-53 * (1.0 + e) < 1.0; });
+}
+
+std::uint64_t metropolis_threshold(double y) {
+  if (y <= 0) return kTwo53;
+  const double p = std::exp(-y);
+  return boundary(p * 0x1.0p53, [&](std::uint64_t m) { return double(m) * 0x1.0p-53 < p; });
+}
+
+}  // namespace spinfer::detail

@@ -1,0 +1,130 @@
+// Internal: the sampler's inner-loop kernels (sampler.cpp runs the chains).
+//
+// * add_scaled: the dense field update y += a x after a flip.
+// * Lanes / draw_lanes: eight xoshiro256** generators stepped together, so a sweep's random
+//   bits come in one vectorised batch.
+// * AcceptanceTable: the heat-bath and Metropolis tests without exp on almost every update.
+// * Integer thresholds for the uniform-coupling kernel.
+// The wide kernels are built for AVX-512 and AVX2 as well as the baseline and chosen at load time
+// (GCC target_clones), so portable binaries still use wide vectors.
+#pragma once
+
+#include <algorithm>
+#include <cstdint>
+#include <vector>
+
+namespace spinfer::detail {
+
+/// y[j] += a x[j] for j in [0, n).
+void add_scaled(double* __restrict y, const double* __restrict x, double a, std::int64_t n);
+
+/// Eight xoshiro256** generators (the algorithm of rng.hpp) stepped together (one AVX-512
+/// register per state word). Lane l of step t gives out[8t + l]. Seeded from a chain's own
+/// stream, so the bits depend only on that chain.
+struct Lanes {
+  static constexpr std::int64_t kWidth = 8;
+  std::uint64_t s[4][kWidth];  // s[word][lane]
+};
+
+/// Fills out[0, n) (n rounded up to a multiple of 8: `out` needs room for that) with random bits.
+void draw_lanes(Lanes& g, std::uint64_t* out, std::int64_t n);
+/// The same bits as 32-bit words: draw i is out[2i] (low half), out[2i + 1] (high half).
+void draw_lanes(Lanes& g, std::uint32_t* out, std::int64_t n);
+
+/// The acceptance tests of the single-unit updates, decided by brackets from a table:
+///   heat bath   active iff u (1 + exp(-x)) < 1        (x = beta (hi - lo) H_k)
+///   Metropolis  accept iff y <= 0 or u < exp(-y)      (y = beta dE)
+/// The argument's table cell [t_c, t_c+1) gives p(t_c) and p(t_c+1), between which p(x) lies as
+/// p is monotone (held as draw counts: u = m 2^-53 < p iff m < ceil(p 2^53)); a draw below the
+/// lower value passes, one at or above the upper value fails, and
+/// only a draw between them (probability <= cell width x max |p'|, under 1/64 here) evaluates the
+/// exact test. The bounds are widened by 2^-40 relative, far beyond the rounding of the exact
+/// test, so every decision is the exact test's decision: the chain is the same as with exp.
+class AcceptanceTable {
+ public:
+  AcceptanceTable();
+
+  // The draw is given as its top 53 bits m (u = m 2^-53) and the bracket ends as integers in
+  // the same units, so both comparisons are integer sign bits combined without branches (their
+  // outcome is as unpredictable as the update itself); only the rare draw inside the bracket
+  // branches off to the exact test.
+  bool heat_bath(double x, std::uint64_t m) const {
+    const double t = std::min(std::max((x + kRange) * kPerUnit, -1.0), kCells + 0.5);
+    const int r = decide(logistic_[std::size_t(std::int64_t(t + 1.0))], m);
+    return r == 0 ? exact_heat_bath(x, m) : r == 1;
+  }
+
+  /// Metropolis for any y: y <= 0 accepts.
+  bool metropolis(double y, std::uint64_t m) const {
+    const double t = std::min(std::max(y * kPerUnit, 0.0), kCells + 0.5);
+    const Bracket& b = decay_[std::size_t(std::int64_t(t))];
+    const int r = decide(b, m) | int(y <= 0.0);  // 1 or 3 (y <= 0 with m >= upper) pass
+    return r == 0 ? exact_metropolis(y, m) : (r & 1) != 0;
+  }
+
+  /// The tests with exp, for a draw m (53 bits): u = m 2^-53.
+  static bool exact_heat_bath(double x, std::uint64_t m);
+  static bool exact_metropolis(double y, std::uint64_t m);
+
+ private:
+  static constexpr double kRange = 20.0;   // logistic table over x in [-20, 20]; decay over [0, 40]
+  static constexpr double kPerUnit = 16.0; // cells per unit of the argument
+  static constexpr std::int64_t kCells = 640;
+  /// Draws m < lower pass for every argument in the cell, draws m >= upper fail (both <= 2^53).
+  struct Bracket {
+    std::uint64_t lower, upper;
+  };
+  /// 1: m < lower (pass), 2: m >= upper (fail), 0: in between. Sign bits of differences of
+  /// numbers below 2^54, so no comparison becomes a branch.
+  static int decide(const Bracket& b, std::uint64_t m) {
+    return int((m - b.lower) >> 63) | int(((b.upper - 1) - m) >> 63) << 1;
+  }
+  std::vector<Bracket> logistic_, decay_;
+};
+
+/// The process-wide table (built once, read-only afterwards).
+const AcceptanceTable& acceptance_table();
+
+// ---- exact integer thresholds for the uniform-coupling kernel ------------------------------------
+// A uniform u = m 2^-53 (m the top 53 bits of a draw) passes a test "u < p" exactly when m < T for
+// one integer T, as the test (rounding included) is monotone in m. With one coupling value and one
+// field value the local field takes only 2 dmax + 1 values, so T is tabulated once per value.
+
+/// Heat bath: active iff u (1 + exp(-x)) < 1, the exact test of AcceptanceTable.
+std::uint64_t heat_bath_threshold(double x);
+
+/// Metropolis: accept iff y <= 0 or u < exp(-y).
+std::uint64_t metropolis_threshold(double y);
+
+// ---- uniform couplings, one colour at a time ---------------------------------------------------
+// The state is held as int32 values by scan position (x[N] = 0 pads short neighbour rows); the
+// neighbour positions of scan position i are nb[j * stride + i], j < degree. A 53-bit draw m
+// passes level L iff m < T_L; with m = high 2^21 + low (high: the draw's top 32 bits, low: the
+// next 21) and T_L = th 2^21 + tl (th capped at 2^32 - 1, so tl <= 2^21), that is
+// high < th || (high == th && low < tl): the same decision in 32-bit lanes.
+
+struct UniformColour {
+  std::int32_t* x = nullptr;
+  const std::int32_t* nb = nullptr;
+  std::int64_t stride = 0, degree = 0;
+  std::int64_t begin = 0, end = 0;     ///< scan positions of the colour (units not coupled)
+  const std::uint32_t* words = nullptr;  ///< 2 words per update (low, high half of a draw),
+                                         ///< from the colour's first update
+  const std::uint32_t* th = nullptr;   ///< [row][S + degree]: row = old value is high (Metropolis)
+  const std::uint32_t* tl = nullptr;
+  std::int32_t lo = 0, hi = 1;
+  bool gibbs = true;
+};
+
+struct UniformSums {
+  std::int64_t dv = 0, dv_S = 0, flips = 0;  ///< sum of value changes, of change x S, changes
+};
+
+/// Updates every position of the colour; adds to `sums`. Vectorised for degrees 2, 3, 4, 6, 8.
+void update_uniform_colour(const UniformColour& a, UniformSums& sums);
+
+/// Splits the 53-bit thresholds into the (th, tl) pairs of UniformColour.
+void split_thresholds(const std::vector<std::uint64_t>& t, std::vector<std::uint32_t>* th,
+                      std::vector<std::uint32_t>* tl);
+
+}  // namespace spinfer::detail
