@@ -1,9 +1,11 @@
 // `spinfer refine`: Boltzmann-learning refinement of a model until its means and correlations
 // match the data within sampling noise (refine.hpp).
 #include <memory>
+#include <optional>
 
 #include <nlohmann/json.hpp>
 
+#include "checkpoint.hpp"
 #include "commands.hpp"
 #include "spinfer/io.hpp"
 #include "spinfer/model_io.hpp"
@@ -17,11 +19,21 @@ struct RefineArgs {
   std::string model, data, convention, member, expectations = "auto", noise = "bootstrap";
   double threshold = 1.0, l2 = 0, max_seconds = 0;
   std::int64_t max_iterations = 1000;
+  CheckpointArgs checkpoint;
 };
 
 int run_refine(const Context& ctx, const RefineArgs& a) {
   if (ctx.common.out.empty()) throw InputError("--out is required");
   check_output_path(ctx.common.out, ctx.common.force);
+  // Everything the result depends on; not --threads (no effect on results) nor --max-seconds (a
+  // wall-clock budget, counted over all runs together).
+  CheckpointFile checkpoint(ctx, a.checkpoint, "refine",
+                            make_fingerprint({{"model", a.model}, {"data", a.data}},
+                                             {{"expectations", a.expectations}, {"noise", a.noise},
+                                              {"threshold", a.threshold}, {"l2", a.l2},
+                                              {"max_iterations", a.max_iterations}, {"seed", ctx.common.seed},
+                                              {"convention", a.convention}, {"member", a.member}}));
+  std::optional<nlohmann::json> resume = checkpoint.start();
   const IsingModel start = load_model(a.model);
   ReadOptions ro;
   if (!a.convention.empty()) ro.convention = parse_convention(a.convention);
@@ -37,9 +49,11 @@ int run_refine(const Context& ctx, const RefineArgs& a) {
   o.seed = ctx.common.seed;
   o.threads = ctx.common.threads;
   o.progress = progress_logger(ctx, "refine");
+  o.checkpoint = checkpoint.hooks(std::move(resume));
   RefineResult r = refine_moments(data, start, o);
   r.model.provenance.extra["command"] = provenance_json(ctx, {a.model, a.data});
   save_model(ctx.common.out, r.model);
+  checkpoint.remove();
   log_info(ctx, "refine", std::string(r.converged ? "converged" : "stopped (" + r.stop_reason + ")") +
                               " after " + std::to_string(r.iterations) + " iterations: normalised errors " +
                               std::to_string(r.epsilon_mean) + " (means), " +
@@ -72,11 +86,15 @@ void add_refine_command(CLI::App& app, Context& ctx) {
   sub->add_option("--l2", args->l2, "L2 penalty on the couplings")->check(CLI::NonNegativeNumber);
   sub->add_option("--max-iterations", args->max_iterations, "Iteration budget")->check(CLI::PositiveNumber);
   sub->add_option("--max-seconds", args->max_seconds, "Wall-clock budget (0: none)")->check(CLI::NonNegativeNumber);
+  add_checkpoint_options(*sub, args->checkpoint);
   add_common_options(*sub, ctx.common);
   sub->footer(
       "Adjusts fields and couplings with Monte Carlo (or exact) gradients of the likelihood until the\n"
-      "model's means and correlations match the data within sampling noise, or a budget runs out.\n\n"
-      "Example:\n  spinfer refine model.json recording.npz --out refined.json --seed 4\n");
+      "model's means and correlations match the data within sampling noise, or a budget runs out.\n"
+      "SIGTERM, SIGINT or SIGUSR1 stop it at the next iteration with a checkpoint (exit 128 + signal);\n"
+      "--resume continues to the result an uninterrupted run gives.\n\n"
+      "Example:\n  spinfer refine model.json recording.npz --out refined.json --seed 4\n"
+      "  spinfer refine model.json recording.npz --out refined.json --seed 4 --resume\n");
   sub->callback([&ctx, args] { ctx.run = [&ctx, args] { return run_refine(ctx, *args); }; });
 }
 

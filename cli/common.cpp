@@ -11,6 +11,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "signals.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/fit.hpp"
 #include "spinfer/version.hpp"
@@ -45,9 +46,11 @@ void log_info(const Context& ctx, const std::string& event, const std::string& m
 void print_summary(const std::string& json_line) { std::cout << json_line << std::endl; }
 
 spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string& stage) {
+  catch_stop_signals();
   auto last = std::make_shared<double>(0.0);
   const Context* c = &ctx;
   return [c, stage, last](const spinfer::Progress& p) {
+    if (stop_signal() != 0) return false;  // stop at the next consistent point (signals.hpp)
     // A terminal gets a line every 2 s; a log file (cluster job) every 30 s.
     const double every = ::isatty(2) ? 2.0 : 30.0;
     if (p.elapsed_s - *last < every) return true;

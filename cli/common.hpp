@@ -21,6 +21,7 @@ enum ExitCode : int {
   kBadInput = 65,     ///< input data rejected (non-binary values, ragged rows, ...)
   kFileError = 66,    ///< a file cannot be opened, read or written, or exists without --force
   kNumerical = 70,    ///< no finite answer (singular matrix, divergence)
+  kSignalBase = 128,  ///< + signal number: stopped by SIGTERM/SIGINT/SIGUSR1 (signals.hpp)
 };
 
 /// Options every subcommand shares.
@@ -48,7 +49,8 @@ void log_info(const Context& ctx, const std::string& event, const std::string& m
 /// Print the final machine-readable summary line on stdout (a JSON object).
 void print_summary(const std::string& json_line);
 
-/// A progress callback that logs a plain line (or a JSON line) on stderr at most every few seconds.
+/// A progress callback that logs a plain line (or a JSON line) on stderr at most every few seconds,
+/// and stops the computation once a stop signal is pending (installs the handlers; signals.hpp).
 spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string& stage);
 
 /// Provenance for outputs: command line, version, seed, threads, and a checksum of each input.

@@ -2,6 +2,7 @@
 // exceptions to the documented exit codes. All numerical work happens in the library.
 #include <iostream>
 
+#include "checkpoint.hpp"
 #include "commands.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/version.hpp"
@@ -50,6 +51,8 @@ int main(int argc, char** argv) {
   } catch (const spinfer::NumericalError& e) {
     std::cerr << "spinfer: numerical failure: " << e.what() << std::endl;
     return kNumerical;
+  } catch (const spinfer::Interrupted& e) {
+    return exit_after_interruption(e.what());  // 128 + signal
   } catch (const std::exception& e) {
     std::cerr << "spinfer: internal error: " << e.what() << std::endl;
     return kFailure;

@@ -9,6 +9,8 @@
 #include <limits>
 #include <sstream>
 
+#include "checkpoint_state.hpp"
+#include "refine_state.hpp"
 #include "spinfer/bootstrap.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/exact.hpp"
@@ -64,6 +66,7 @@ void check_options(const RefineOptions& o) {
   if (o.patience < 1) bad("patience must be >= 1");
   if (!(o.max_step > 0)) bad("max_step must be positive");
   if (!(o.exact_tolerance > 0)) bad("exact_tolerance must be positive");
+  checkpoint::check_hooks(o.checkpoint, "refine");
 }
 
 /// The data side: spin moments and their noise.
@@ -181,11 +184,8 @@ Target data_target(const SpinMatrix& data, const RefineOptions& o, RefineResult&
   return t;
 }
 
-/// Parameters in the spin convention.
-struct Params {
-  Eigen::VectorXd h;
-  Eigen::MatrixXd J;
-};
+using Params = detail::RefineParams;
+using detail::RefineLoop;
 
 IsingModel spin_model(const Params& p) {
   IsingModel m;
@@ -263,6 +263,14 @@ class ChainSampler {
     so.burn_in = o_.burn_in;
     so.samples = o_.chains;
     continue_chains(spin_model(p), states_, so);
+  }
+
+  /// The persistent chains (chains x units, 1 = +1), for checkpoints.
+  const std::vector<std::uint8_t>& states() const { return states_.active; }
+  void set_states(std::vector<std::uint8_t> active) {
+    states_.chains = o_.chains;
+    states_.units = N_;
+    states_.active = std::move(active);
   }
 
   SampledMoments run(const Params& p, std::int64_t samples, std::int64_t iteration) {
@@ -538,8 +546,32 @@ void report(const RefineOptions& o, std::int64_t t, double objective, Clock::tim
   if (!o.progress(p)) throw Interrupted("refine: interrupted at iteration " + std::to_string(t));
 }
 
-Params run_sampled(const SpinMatrix& data, const Target& d, Params p, const RefineOptions& o, RefineResult& res,
-                   Clock::time_point t0) {
+/// Hands the loop state to the checkpoint hooks (refine.hpp, "Checkpoints").
+class Saver {
+ public:
+  Saver(const RefineOptions& o, bool sampled, std::int64_t units, Clock::time_point t0)
+      : o_(o), sampled_(sampled), units_(units), t0_(t0), clock_(o.checkpoint) {}
+  /// At the top of iteration loop.iteration: saves when every_seconds have passed.
+  void maybe(const RefineLoop& loop, const RefineResult& res) {
+    if (clock_.due()) now(loop, res);
+  }
+  /// Just before an Interrupted propagates (loop as at the top of the interrupted iteration).
+  void now(const RefineLoop& loop, const RefineResult& res) {
+    if (clock_.enabled())
+      clock_.save(detail::refine_state(loop, sampled_, units_, o_, seconds_since(t0_), res.trajectory, res.warnings));
+  }
+
+ private:
+  const RefineOptions& o_;
+  bool sampled_;
+  std::int64_t units_;
+  Clock::time_point t0_;
+  checkpoint::SaveClock clock_;
+};
+
+/// Continues `loop` (a saved state, or a fresh one holding the start parameters).
+Params run_sampled(const SpinMatrix& data, const Target& d, RefineLoop& loop, const RefineOptions& o,
+                   RefineResult& res, Clock::time_point t0) {
   const std::int64_t N = d.m.size();
   ChainSampler sampler(N, o, t0);
   const Preconditioner pc = make_preconditioner(data, d, o);
@@ -549,27 +581,58 @@ Params run_sampled(const SpinMatrix& data, const Target& d, Params p, const Refi
   const std::int64_t S_max =
       sampler.round_up(std::max(S_min, o.max_check_samples > 0 ? o.max_check_samples
                                                                : std::int64_t(1e8 / double(N))));
-  std::int64_t S = S_min;
-  res.samples_per_iteration = S;
-  sampler.burn_in(p);
-
-  double rate = o.learning_rate;
-  Eigen::VectorXd vh = Eigen::VectorXd::Zero(N), gh, dh;
-  Eigen::MatrixXd vJ = Eigen::MatrixXd::Zero(N, N), gJ, dJ;
-  std::deque<std::pair<double, Params>> window;  // recent (error^2, parameters)
-  double best = std::numeric_limits<double>::infinity();
-  std::int64_t since_best = 0;
+  res.samples_per_iteration = S_min;
+  const bool resumed = loop.started;
+  if (resumed) {
+    sampler.set_states(std::move(loop.chains));
+    res.trajectory = std::move(loop.trajectory);
+    res.warnings = std::move(loop.warnings);
+  } else {
+    sampler.burn_in(loop.p);  // an interruption here is saved by the caller as "not started"
+    loop.started = true;
+    loop.iteration = 1;
+    loop.samples = S_min;
+    loop.rate = o.learning_rate;
+    loop.vh = Eigen::VectorXd::Zero(N);
+    loop.vJ = Eigen::MatrixXd::Zero(N, N);
+  }
+  // Short names for the loop state (all of it lives in `loop`, so a checkpoint sees it).
+  Params& p = loop.p;
+  std::int64_t& S = loop.samples;
+  double& rate = loop.rate;
+  Eigen::VectorXd& vh = loop.vh;
+  Eigen::MatrixXd& vJ = loop.vJ;
+  auto& window = loop.window;
+  double& best = loop.best;
+  std::int64_t& since_best = loop.since_best;
+  Eigen::VectorXd gh, dh;
+  Eigen::MatrixXd gJ, dJ;
+  Saver saver(o, true, N, t0);
   Params evaluated = p;
   res.stop_reason = "iterations";
-  for (std::int64_t t = 1; t <= o.max_iterations; ++t) {
-    const SampledMoments sm = sampler.run(p, S, t);
-    evaluated = p;
-    const Errors e = compare(d, sm.mean, sm.second, &sm.mean_se, &sm.second_se);
-    gradient(d, p, sm.mean, sm.second, o.l2, gh, gJ);
-    const double worst = std::max(e.eps_m, e.eps_c);
-    const bool below = worst < o.threshold;
-    record(res, t, e, max_abs(gh, gJ), sm.samples, rate, below && e.mc_ratio <= o.monte_carlo_ratio);
-    report(o, t, std::hypot(e.eps_m, e.eps_c), t0);
+  const std::int64_t first = loop.iteration;
+  for (; loop.iteration <= o.max_iterations; ++loop.iteration) {
+    const std::int64_t t = loop.iteration;
+    // A consistent point. Until the evaluation below has been reported (where Interrupted comes
+    // from), only the chains change, so `loop` with the chains copied here is this point's state.
+    loop.chains = sampler.states();
+    if (t > first || !resumed) saver.maybe(loop, res);
+    Errors e;
+    double worst = 0;
+    bool below = false;
+    try {
+      const SampledMoments sm = sampler.run(p, S, t);
+      evaluated = p;
+      e = compare(d, sm.mean, sm.second, &sm.mean_se, &sm.second_se);
+      gradient(d, p, sm.mean, sm.second, o.l2, gh, gJ);
+      worst = std::max(e.eps_m, e.eps_c);
+      below = worst < o.threshold;
+      record(res, t, e, max_abs(gh, gJ), sm.samples, rate, below && e.mc_ratio <= o.monte_carlo_ratio);
+      report(o, t, std::hypot(e.eps_m, e.eps_c), t0);
+    } catch (const Interrupted&) {
+      saver.now(loop, res);
+      throw;
+    }
     if (below && e.mc_ratio <= o.monte_carlo_ratio) {  // matched within noise, reliably measured
       res.converged = true;
       res.stop_reason = "converged";
@@ -692,22 +755,44 @@ double objective(const Target& d, const Params& p, double log_z, double l2) {
   return L;
 }
 
-Params run_exact(const Target& d, Params p, const RefineOptions& o, RefineResult& res,
+/// Continues `loop` (a saved state, or a fresh one holding the start parameters).
+Params run_exact(const Target& d, RefineLoop& loop, const RefineOptions& o, RefineResult& res,
                  Clock::time_point t0) {
   const std::int64_t N = d.m.size(), P = N + N * (N - 1) / 2;
   const int threads = resolve_threads(o.threads);
+  const bool resumed = loop.started;
+  if (resumed) {
+    res.trajectory = std::move(loop.trajectory);
+    res.warnings = std::move(loop.warnings);
+  } else {
+    loop.started = true;
+    loop.iteration = 1;
+  }
+  Params& p = loop.p;
+  Saver saver(o, false, N, t0);
   Eigen::VectorXd gh;
   Eigen::MatrixXd gJ;
   res.stop_reason = "iterations";
-  for (std::int64_t t = 1; t <= o.max_iterations; ++t) {
-    const ExactTerms x = exact_terms(p, threads);
-    const double L = objective(d, p, x.log_z, o.l2);
-    const Errors e = compare(d, x.mean, x.second, nullptr, nullptr);
-    gradient(d, p, x.mean, x.second, o.l2, gh, gJ);
-    const double gmax = max_abs(gh, gJ);
-    record(res, t, e, gmax, 0, 0.0, false);
-    res.log_likelihood = L + 0.25 * o.l2 * p.J.squaredNorm();  // without the penalty
-    report(o, t, -L, t0);
+  const std::int64_t first = loop.iteration;
+  for (; loop.iteration <= o.max_iterations; ++loop.iteration) {
+    const std::int64_t t = loop.iteration;
+    // A consistent point: `p` only changes after the report below.
+    if (t > first || !resumed) saver.maybe(loop, res);
+    ExactTerms x;
+    double L = 0, gmax = 0;
+    try {
+      x = exact_terms(p, threads);
+      L = objective(d, p, x.log_z, o.l2);
+      const Errors e = compare(d, x.mean, x.second, nullptr, nullptr);
+      gradient(d, p, x.mean, x.second, o.l2, gh, gJ);
+      gmax = max_abs(gh, gJ);
+      record(res, t, e, gmax, 0, 0.0, false);
+      res.log_likelihood = L + 0.25 * o.l2 * p.J.squaredNorm();  // without the penalty
+      report(o, t, -L, t0);
+    } catch (const Interrupted&) {
+      saver.now(loop, res);
+      throw;
+    }
     if (gmax <= o.exact_tolerance) {
       res.converged = true;
       res.stop_reason = "converged";
@@ -768,7 +853,7 @@ Params run_exact(const Target& d, Params p, const RefineOptions& o, RefineResult
 }  // namespace
 
 RefineResult refine_moments(const SpinMatrix& data, const IsingModel& start, const RefineOptions& o) {
-  const auto t0 = Clock::now();
+  auto t0 = Clock::now();
   check_options(o);
   validate_model(start, "start model");
   const std::int64_t N = data.cols();
@@ -783,12 +868,30 @@ RefineResult refine_moments(const SpinMatrix& data, const IsingModel& start, con
     throw InputError("refine: exact expectations need N <= 20 units (the data have " +
                      std::to_string(N) + "); use expectations = \"sampled\"");
 
+  RefineLoop loop;
+  if (o.checkpoint.resume) {
+    loop = detail::read_refine_state(*o.checkpoint.resume, !exact, N, o);
+    // The time budget and the reported seconds count the interrupted runs too.
+    t0 -= std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(loop.elapsed_seconds));
+  }
+  if (!loop.started) {
+    const IsingModel s = convert_model(start, Convention::spin);
+    loop.p = Params{s.fields, s.couplings};
+  }
+
   RefineResult res;
   res.expectations = exact ? "exact" : "sampled";
-  const Target d = data_target(data, o, res);
-  const IsingModel s = convert_model(start, Convention::spin);
-  Params p{s.fields, s.couplings};
-  const Params fitted = exact ? run_exact(d, p, o, res, t0) : run_sampled(data, d, p, o, res, t0);
+  Params fitted;
+  try {
+    const Target d = data_target(data, o, res);
+    fitted = exact ? run_exact(d, loop, o, res, t0) : run_sampled(data, d, loop, o, res, t0);
+  } catch (const Interrupted&) {
+    // Stopped before the first consistent point (data noise, burn-in): the state says "nothing
+    // done yet", so a resume starts afresh. Later interruptions were saved by the loops.
+    if (!loop.started && o.checkpoint.save)
+      o.checkpoint.save(detail::refine_state(RefineLoop{}, !exact, N, o, 0.0, {}, {}));
+    throw;
+  }
 
   IsingModel out = convert_model(spin_model(fitted), start.convention);
   out.names = !start.names.empty() ? start.names : data.names();

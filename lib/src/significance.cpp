@@ -3,8 +3,12 @@
 #include <algorithm>
 #include <chrono>
 #include <cmath>
+#include <limits>
 #include <numeric>
+#include <optional>
+#include <string>
 
+#include "checkpoint_state.hpp"
 #include "spinfer/bootstrap.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/rng.hpp"
@@ -22,6 +26,67 @@ double quantile(const std::vector<double>& sorted, double q) {
   const auto lo = std::size_t(std::floor(pos));
   const std::size_t hi = std::min(lo + 1, sorted.size() - 1);
   return sorted[lo] + (pos - double(lo)) * (sorted[hi] - sorted[lo]);
+}
+
+/// The finished work at a consistent point (between refits): the full-data couplings, then per
+/// replicate the bootstrap J_ij (i < j, row by row) or the null |J| values (pairs across groups).
+struct Finished {
+  std::optional<Eigen::MatrixXd> estimate;
+  std::vector<std::vector<double>> bootstrap, null;
+};
+
+constexpr int kStateVersion = 1;
+
+nlohmann::json state_json(const Finished& f, const SpinMatrix& data, std::int64_t block_length,
+                          const SignificanceOptions& o) {
+  nlohmann::json s = {{"kind", "significance"},       {"version", kStateVersion},
+                      {"units", data.cols()},         {"samples", data.rows()},
+                      {"block_length", block_length}, {"seed", o.seed},
+                      {"convention", to_string(o.convention)}};
+  s["estimate"] = f.estimate ? checkpoint::matrix(*f.estimate) : nlohmann::json();
+  s["bootstrap"] = nlohmann::json::array();
+  for (const auto& v : f.bootstrap) s["bootstrap"].push_back(checkpoint::numbers(v));
+  s["null"] = nlohmann::json::array();
+  for (const auto& v : f.null) s["null"].push_back(checkpoint::numbers(v));
+  return s;
+}
+
+Finished read_state(const nlohmann::json& state, const SpinMatrix& data, std::int64_t block_length,
+                    const SignificanceOptions& o) {
+  const checkpoint::StateReader r(state, "significance: resume state: ", "significance", kStateVersion);
+  const std::int64_t N = data.cols(), P = N * (N - 1) / 2;
+  auto same = [&](const std::string& key, std::int64_t expected, const std::string& what) {
+    const std::int64_t got = r.integer(key, 0, std::numeric_limits<std::int64_t>::max());
+    if (got != expected)
+      r.fail("it has " + key + " " + std::to_string(got) + ", " + what + " " + std::to_string(expected));
+  };
+  same("units", N, "the data have");
+  same("samples", data.rows(), "the data have");
+  same("block_length", block_length, "this run uses");
+  if (r.unsigned_integer("seed") != o.seed)
+    r.fail("it was saved with seed " + std::to_string(r.unsigned_integer("seed")) + ", this run has seed " +
+           std::to_string(o.seed));
+  if (r.text("convention") != to_string(o.convention))
+    r.fail("its couplings are in the " + r.text("convention") + " convention, this run reports " +
+           to_string(o.convention));
+  Finished f;
+  if (r.has("estimate")) f.estimate = r.matrix("estimate", N, N);
+  const nlohmann::json& boot = r.list("bootstrap");
+  if (std::int64_t(boot.size()) > o.bootstrap_replicates)
+    r.fail("it has " + std::to_string(boot.size()) + " bootstrap replicates, more than the " +
+           std::to_string(o.bootstrap_replicates) + " of this run");
+  for (std::size_t b = 0; b < boot.size(); ++b)
+    f.bootstrap.push_back(r.numbers_of(boot[b], "bootstrap replicate " + std::to_string(b + 1), P));
+  const nlohmann::json& null = r.list("null");
+  if (std::int64_t(null.size()) > o.null_replicates)
+    r.fail("it has " + std::to_string(null.size()) + " null replicates, more than the " +
+           std::to_string(o.null_replicates) + " of this run");
+  for (std::size_t s = 0; s < null.size(); ++s) {
+    f.null.push_back(r.numbers_of(null[s], "null replicate " + std::to_string(s + 1), -1));
+    if (std::int64_t(f.null.back().size()) > P)
+      r.fail("null replicate " + std::to_string(s + 1) + " has more values than there are pairs");
+  }
+  return f;
 }
 
 }  // namespace
@@ -76,6 +141,7 @@ SignificanceResult coupling_significance(const SpinMatrix& data, const Fitter& f
   if (o.null_replicates < 1) throw InputError("significance: need at least 1 null replicate");
   if (!(o.confidence > 0 && o.confidence < 1)) throw InputError("significance: confidence must be in (0, 1)");
   if (!(o.fdr > 0 && o.fdr < 1)) throw InputError("significance: the false discovery rate must be in (0, 1)");
+  checkpoint::check_hooks(o.checkpoint, "significance");
   const std::int64_t N = data.cols();
   SignificanceResult r;
   r.convention = o.convention;
@@ -84,9 +150,11 @@ SignificanceResult coupling_significance(const SpinMatrix& data, const Fitter& f
   r.block_length = o.block_length > 0 ? o.block_length : default_block_length(data);
   r.bootstrap_replicates = o.bootstrap_replicates;
   r.null_replicates = o.null_replicates;
+  Finished f;
+  if (o.checkpoint.resume) f = read_state(*o.checkpoint.resume, data, r.block_length, o);
   const auto start = std::chrono::steady_clock::now();
   const std::int64_t total = 1 + o.bootstrap_replicates + o.null_replicates;
-  std::int64_t done = 0;
+  std::int64_t done = (f.estimate ? 1 : 0) + std::int64_t(f.bootstrap.size() + f.null.size());
   auto tick = [&](const char* stage) {
     ++done;
     if (!o.progress) return;
@@ -98,35 +166,58 @@ SignificanceResult coupling_significance(const SpinMatrix& data, const Fitter& f
     if (!o.progress(p)) throw Interrupted("significance interrupted");
   };
 
-  r.estimate = couplings_in(fit(data), o.convention);
-  tick("fit");
-
-  // Bootstrap replicates: every J_ij's values over replicates.
+  // Every refit is one step; replicates draw from their own streams (seed, replicate), so the
+  // ones not finished before an interruption are simply run on resume.
+  checkpoint::SaveClock clock(o.checkpoint);
   const std::size_t P = std::size_t(N * (N - 1) / 2);
-  std::vector<std::vector<double>> boot(P);
-  SpinMatrix resample = data;
-  for (std::int64_t b = 0; b < o.bootstrap_replicates; ++b) {
-    std::vector<double> w = block_bootstrap_weights(data.rows(), r.block_length, o.seed, b);
-    if (data.weighted())
-      for (std::int64_t t = 0; t < data.rows(); ++t) w[std::size_t(t)] *= data.weight(t);
-    resample.set_weights(std::move(w));
-    const Eigen::MatrixXd J = couplings_in(fit(resample), o.convention);
-    std::size_t k = 0;
-    for (std::int64_t i = 0; i < N; ++i)
-      for (std::int64_t j = i + 1; j < N; ++j) boot[k++].push_back(J(i, j));
-    tick("bootstrap");
+  try {
+    if (!f.estimate) {
+      f.estimate = couplings_in(fit(data), o.convention);
+      tick("fit");
+      if (clock.due()) clock.save(state_json(f, data, r.block_length, o));
+    }
+    // Bootstrap replicates.
+    SpinMatrix resample = data;
+    for (auto b = std::int64_t(f.bootstrap.size()); b < o.bootstrap_replicates; ++b) {
+      std::vector<double> w = block_bootstrap_weights(data.rows(), r.block_length, o.seed, b);
+      if (data.weighted())
+        for (std::int64_t t = 0; t < data.rows(); ++t) w[std::size_t(t)] *= data.weight(t);
+      resample.set_weights(std::move(w));
+      const Eigen::MatrixXd J = couplings_in(fit(resample), o.convention);
+      std::vector<double> upper;
+      upper.reserve(P);
+      for (std::int64_t i = 0; i < N; ++i)
+        for (std::int64_t j = i + 1; j < N; ++j) upper.push_back(J(i, j));
+      f.bootstrap.push_back(std::move(upper));
+      tick("bootstrap");
+      if (clock.due()) clock.save(state_json(f, data, r.block_length, o));
+    }
+    // Shift surrogates: null |J| of the pairs split across the two groups.
+    for (auto s = std::int64_t(f.null.size()); s < o.null_replicates; ++s) {
+      std::vector<std::uint8_t> group;
+      const SpinMatrix surrogate = circular_shift_surrogate(data, r.block_length, o.seed, s, &group);
+      const Eigen::MatrixXd J = couplings_in(fit(surrogate), o.convention);
+      std::vector<double> values;
+      for (std::int64_t i = 0; i < N; ++i)
+        for (std::int64_t j = i + 1; j < N; ++j)
+          if (group[std::size_t(i)] != group[std::size_t(j)]) values.push_back(std::abs(J(i, j)));
+      f.null.push_back(std::move(values));
+      tick("null");
+      if (clock.due()) clock.save(state_json(f, data, r.block_length, o));
+    }
+  } catch (const Interrupted&) {
+    // From `tick` or from inside a refit (its own progress callback): the refit in progress is
+    // dropped, everything finished is saved.
+    if (clock.enabled()) clock.save(state_json(f, data, r.block_length, o));
+    throw;
   }
 
-  // Shift surrogates: pooled null |J| of the pairs split across the two groups.
-  for (std::int64_t s = 0; s < o.null_replicates; ++s) {
-    std::vector<std::uint8_t> group;
-    const SpinMatrix surrogate = circular_shift_surrogate(data, r.block_length, o.seed, s, &group);
-    const Eigen::MatrixXd J = couplings_in(fit(surrogate), o.convention);
-    for (std::int64_t i = 0; i < N; ++i)
-      for (std::int64_t j = i + 1; j < N; ++j)
-        if (group[std::size_t(i)] != group[std::size_t(j)]) r.null_abs.push_back(std::abs(J(i, j)));
-    tick("null");
-  }
+  r.estimate = *f.estimate;
+  // Every J_ij's values over the bootstrap replicates; the null values pooled.
+  std::vector<std::vector<double>> boot(P);
+  for (const auto& upper : f.bootstrap)
+    for (std::size_t k = 0; k < P; ++k) boot[k].push_back(upper[k]);
+  for (const auto& values : f.null) r.null_abs.insert(r.null_abs.end(), values.begin(), values.end());
   std::sort(r.null_abs.begin(), r.null_abs.end());
 
   r.standard_error = r.lower = r.upper = r.p_value = r.q_value = Eigen::MatrixXd::Zero(N, N);

@@ -79,6 +79,20 @@
 //
 // Reproducibility: iteration t samples with seed derived from (seed, t), and chain c of it draws
 // from its own stream, so the same seed gives the same result for every thread count.
+//
+// Checkpoints (checkpoint.hpp): the consistent points are the tops of the iterations. A state
+// (kind "refine", version 1) holds expectations, units, seed and "started"; once the first
+// iteration has been reached (after the data noise and, sampled, the burn-in) also "iteration"
+// (the next to evaluate), "elapsed_seconds", the spin-convention "fields" and "couplings" (list
+// of rows), the "trajectory" so far and the "warnings"; sampled ones add everything the loop
+// carries: "samples" (of the next iteration), "learning_rate", the momentum velocities
+// ("velocity_fields", "velocity_couplings"), the safeguard's "window" of recent (error2, fields,
+// couplings), "best" and "since_best", and the persistent "chains" (one string of 0/1 per
+// chain, 1 = +1). The random streams need no saving: iteration t draws from seeds derived from
+// (seed, t). A state with "started": false (stopped during the data noise or the burn-in) resumes
+// as a fresh run. The data noise and the preconditioner are recomputed on resume (they are
+// deterministic). The elapsed time carries over, so max_seconds counts all runs together; a resumed
+// run's result equals the uninterrupted run's bit for bit (the time budget aside).
 #pragma once
 
 #include <cstdint>
@@ -87,6 +101,7 @@
 
 #include <Eigen/Dense>
 
+#include "spinfer/checkpoint.hpp"
 #include "spinfer/model.hpp"
 #include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
@@ -128,6 +143,10 @@ struct RefineOptions {
 
   // ---- exact expectations ----
   double exact_tolerance = 1e-10;       ///< stop when every |dL/dtheta| is at most this
+
+  /// Saving and resuming (see "Checkpoints" above). A resume state must come from a run with
+  /// the same data, start model and options (max_iterations and max_seconds may grow).
+  CheckpointHooks checkpoint;
 };
 
 /// One iteration's errors, for the trajectory. For sampled expectations the epsilons include the
@@ -172,11 +191,12 @@ struct RefineResult {
 };
 
 /// Refines `start` (any convention, same number of units as `data`) by moment matching. Throws
-/// InputError on a size mismatch, bad options, constant units, or exact expectations with
-/// N > 20; NumericalError when the parameters diverge; Interrupted when the progress callback
-/// returns false. Provenance: method "boltzmann-learning", l2, iterations, converged, objective
-/// (exact: -L; sampled: sqrt(epsilon_m^2 + epsilon_c^2)), samples = data rows, units, seed,
-/// version; extra: start_method, expectations, preconditioner, samples_per_iteration, chains,
+/// InputError on a size mismatch, bad options, constant units, exact expectations with N > 20,
+/// or a resume state that does not fit (kind, version, expectations, sizes, seed);
+/// NumericalError when the parameters diverge; Interrupted when the progress callback returns
+/// false (after handing the state to options.checkpoint.save). Provenance: method
+/// "boltzmann-learning", l2, iterations, converged, objective (exact: -L; sampled:
+/// sqrt(epsilon_m^2 + epsilon_c^2)), samples = data rows, units, seed, version; extra: start_method, expectations, preconditioner, samples_per_iteration, chains,
 /// noise, threshold, epsilon_mean, epsilon_correlation, stop_reason.
 RefineResult refine_moments(const SpinMatrix& data, const IsingModel& start,
                             const RefineOptions& options = {});

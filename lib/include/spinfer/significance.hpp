@@ -19,6 +19,15 @@
 //
 // The estimator is passed in as a function so any fitting method (and its penalty) can be used;
 // replicates are seeded from (seed, replicate) and the result is the same for any thread count.
+//
+// Checkpoints (checkpoint.hpp): the consistent points are the ends of the refits. A state (kind
+// "significance", version 1) holds units, samples, block_length, seed, convention, "estimate"
+// (the full-data couplings as a list of rows, or null before that fit has finished),
+// "bootstrap" (per finished replicate, J_ij for i < j row by row) and "null" (per finished
+// surrogate, the |J| of the pairs across its groups, in pair order). A refit stopped by an
+// interruption (the fitter may throw Interrupted from its own progress callback) is dropped and
+// run again on resume. Since every replicate has its own random stream, a state also resumes a
+// run with more replicates than the one that saved it, to that run's result.
 #pragma once
 
 #include <cstdint>
@@ -27,6 +36,7 @@
 
 #include <Eigen/Dense>
 
+#include "spinfer/checkpoint.hpp"
 #include "spinfer/model.hpp"
 #include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
@@ -44,7 +54,10 @@ struct SignificanceOptions {
   double fdr = 0.05;                   ///< Benjamini-Hochberg false discovery rate
   Convention convention = Convention::spin;  ///< convention of the reported couplings
   std::uint64_t seed = 0;
-  ProgressCallback progress;
+  ProgressCallback progress;            ///< after every refit
+  /// Saving and resuming (see "Checkpoints" above); the data, fitter and options must be the
+  /// saving run's (replicate counts may grow).
+  CheckpointHooks checkpoint;
 };
 
 struct SignificanceResult {
@@ -60,6 +73,9 @@ struct SignificanceResult {
   double confidence = 0.95, fdr = 0.05;
 };
 
+/// Throws InputError on bad options or a resume state that does not fit (kind, version, sizes,
+/// block length, seed, convention); Interrupted when the progress callback returns false or the
+/// fitter throws it (after handing the state to options.checkpoint.save); whatever `fit` throws.
 SignificanceResult coupling_significance(const SpinMatrix& data, const Fitter& fit,
                                          const SignificanceOptions& options);
 
