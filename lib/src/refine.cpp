@@ -714,7 +714,8 @@ struct ExactTerms {
 };
 
 
-ExactTerms exact_terms(const Params& p, int threads) {
+/// `o.progress` is called after every chunk of states (N = 20 takes tens of seconds).
+ExactTerms exact_terms(const Params& p, int threads, const RefineOptions& o, Clock::time_point t0) {
   const std::int64_t N = p.h.size(), P = N + N * (N - 1) / 2;
   const IsingModel model = spin_model(p);
   const Eigen::VectorXd prob = exact_state_probabilities(model, 1.0, threads);
@@ -737,6 +738,14 @@ ExactTerms exact_terms(const Params& p, int threads) {
     mean.noalias() += Fr.transpose() * w;
     const Eigen::MatrixXd WF = w.asDiagonal() * Fr;
     outer.noalias() += Fr.transpose() * WF;
+    if (o.progress) {
+      Progress q;
+      q.stage = "boltzmann learning (exact expectations)";
+      q.done = begin + rows;
+      q.total = states;
+      q.elapsed_s = seconds_since(t0);
+      if (!o.progress(q)) throw Interrupted("refine: interrupted during the exact expectations");
+    }
   }
   x.fisher = outer - mean * mean.transpose();
   x.mean = mean.head(N);
@@ -781,7 +790,7 @@ Params run_exact(const Target& d, RefineLoop& loop, const RefineOptions& o, Refi
     ExactTerms x;
     double L = 0, gmax = 0;
     try {
-      x = exact_terms(p, threads);
+      x = exact_terms(p, threads, o, t0);
       L = objective(d, p, x.log_z, o.l2);
       const Errors e = compare(d, x.mean, x.second, nullptr, nullptr);
       gradient(d, p, x.mean, x.second, o.l2, gh, gJ);

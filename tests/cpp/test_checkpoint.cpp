@@ -211,6 +211,11 @@ TEST_CASE("checkpoint: exact refinement resumed equals the uninterrupted run") {
   const RefineResult resumed = resume_from(c, saved.back(), 1);
   require_same(resumed, full);
   CHECK(resumed.log_likelihood == full.log_likelihood);
+  // Stopped inside the enumeration of iteration 2 (one chunk of states per iteration at N = 5).
+  const std::vector<json> inside = run_and_stop(c, "boltzmann learning (exact expectations)", 2);
+  REQUIRE(!inside.empty());
+  CHECK(inside.back()["iteration"] == 2);
+  require_same(resume_from(c, inside.back(), 2), full);
 }
 
 TEST_CASE("checkpoint: refine refuses a state that does not fit, naming what differs") {
