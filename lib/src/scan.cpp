@@ -1,6 +1,7 @@
 #include "spinfer/scan.hpp"
 
 #include <algorithm>
+#include <chrono>
 #include <cmath>
 
 #include "spinfer/errors.hpp"
@@ -39,7 +40,17 @@ TemperatureScan scan_temperatures(const IsingModel& model, std::vector<double> t
                      "' (expected auto, exact, sampled or tempering)");
   TemperatureScan s;
   s.temperatures = temperatures;
+  const auto start = std::chrono::steady_clock::now();
   for (double t : temperatures) {
+    // Between temperatures (about 0.1 s each at N = 20) the progress callback may stop the scan.
+    if (options.sampler.progress) {
+      Progress p;
+      p.stage = "exact scan";
+      p.done = std::int64_t(s.energy.size());
+      p.total = std::int64_t(temperatures.size());
+      p.elapsed_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+      if (!options.sampler.progress(p)) throw Interrupted("temperature scan interrupted");
+    }
     ExactOptions eo;
     eo.temperature = t;
     eo.threads = options.sampler.threads;

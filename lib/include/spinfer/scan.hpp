@@ -15,11 +15,13 @@ namespace spinfer {
 struct ScanOptions {
   std::string method = "auto";   ///< "auto" (exact when N <= 20, else tempering), "exact",
                                  ///< "sampled" (independent runs), "tempering"
-  SamplerOptions sampler;        ///< used by the Monte Carlo methods
+  SamplerOptions sampler;        ///< used by the Monte Carlo methods (threads and progress
+                                 ///< also by the exact one: progress between temperatures)
 };
 
 /// Runs the scan; `temperatures` must be positive (sorted ascending in the result).
 /// The exact method reports zero errors; `method` of the result's first run says what was used.
+/// Throws Interrupted when sampler.progress returns false.
 TemperatureScan scan_temperatures(const IsingModel& model, std::vector<double> temperatures,
                                   const ScanOptions& options, std::string* method_used = nullptr);
 
