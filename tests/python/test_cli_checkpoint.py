@@ -187,11 +187,11 @@ def test_significance_stopped_twice_resumes_to_the_uninterrupted_table(cli, reco
 
 
 def test_significance_stopped_while_choosing_the_penalty(cli, tmp_path):
-    # 60000 bins: the held-out choice of the penalty, the first thing polling for signals, takes
-    # a good fraction of a second, so the signal lands inside it.
+    # 24 units x 40000 bins (many distinct patterns): the held-out choice of the penalty, the
+    # first thing polling for signals, takes a few tenths of a second, so the signal lands inside.
     rng = np.random.default_rng(7)
-    z = rng.normal(size=(60000, 1))
-    np.save(tmp_path / "x.npy", (rng.normal(size=(60000, 8)) + 0.8 * z > 0.9).astype(np.uint8))
+    z = rng.normal(size=(40000, 1))
+    np.save(tmp_path / "x.npy", (rng.normal(size=(40000, 24)) + 0.8 * z > 0.9).astype(np.uint8))
     args = [tmp_path / "x.npy", "--seed", 1, "--bootstrap", 2, "--nulls", 1, "--threads", 1]
     r = run(cli, "significance", *args, "--out", tmp_path / "ref.csv")
     assert r.returncode == 0, r.stderr
