@@ -1,8 +1,10 @@
 // `spinfer fit`: fit a pairwise model with any estimator (fit.hpp) and write the model file.
 #include <memory>
+#include <optional>
 
 #include <nlohmann/json.hpp>
 
+#include "checkpoint.hpp"
 #include "commands.hpp"
 #include "shards.hpp"
 #include "spinfer/errors.hpp"
@@ -22,7 +24,18 @@ struct FitArgs {
   bool fallback = false, drop_constant = false, shard_from_slurm = false;
   int max_iterations = 1000;
   double tolerance = 1e-5;
+  CheckpointArgs checkpoint;
 };
+
+// Everything a fit's result depends on (not --threads: results do not depend on it).
+nlohmann::json fit_settings(const FitArgs& a) {
+  return {{"method", a.method}, {"variant", a.variant}, {"l1", a.l1}, {"l2", a.l2},
+          {"convention", a.convention}, {"member", a.member},
+          {"model_convention", a.output_convention}, {"drop_constant", a.drop_constant},
+          {"shrinkage", a.shrinkage}, {"mean_field_fallback", a.fallback},
+          {"max_iterations", a.max_iterations}, {"tolerance", a.tolerance},
+          {"shard", a.shard}, {"shard_from_slurm", a.shard_from_slurm}};
+}
 
 // Everything that must agree between the shards of one fit (checked by `spinfer merge`).
 nlohmann::json shard_manifest(const Context& ctx, const FitArgs& a, const SpinMatrix& data,
@@ -70,6 +83,13 @@ int run_fit_shard(const Context& ctx, const FitArgs& a, const SpinMatrix& data,
 int run_fit(const Context& ctx, const FitArgs& a) {
   if (ctx.common.out.empty()) throw InputError("--out is required");
   check_output_path(ctx.common.out, ctx.common.force);
+  nlohmann::json settings = fit_settings(a);
+  if (a.shard_from_slurm) settings["shard"] = [] {
+    const ShardChoice c = shard_from_slurm();
+    return std::to_string(c.index) + "/" + std::to_string(c.count);
+  }();
+  CheckpointFile checkpoint(ctx, a.checkpoint, "fit", make_fingerprint({{"data", a.data}}, settings));
+  std::optional<nlohmann::json> resume = checkpoint.start();
   ReadOptions ro;
   if (!a.convention.empty()) ro.convention = parse_convention(a.convention);
   ro.member = a.member;
@@ -95,16 +115,21 @@ int run_fit(const Context& ctx, const FitArgs& a) {
   o.threads = ctx.common.threads;
   if (!a.output_convention.empty()) o.convention = parse_convention(a.output_convention);
   o.progress = progress_logger(ctx, a.method);
+  o.checkpoint = checkpoint.hooks(std::move(resume));
   if (!a.shard.empty() && a.shard_from_slurm)
     throw InputError("--shard and --shard-from-slurm exclude each other");
-  if (!a.shard.empty() || a.shard_from_slurm)
-    return run_fit_shard(ctx, a, data, o, a.shard_from_slurm ? shard_from_slurm() : parse_shard(a.shard));
+  if (!a.shard.empty() || a.shard_from_slurm) {
+    const int rc = run_fit_shard(ctx, a, data, o, a.shard_from_slurm ? shard_from_slurm() : parse_shard(a.shard));
+    checkpoint.remove();
+    return rc;
+  }
   log_info(ctx, "fit", "fitting " + std::to_string(data.rows()) + " samples x " +
                            std::to_string(data.cols()) + " units with " + a.method);
   IsingModel model = fit_model(data, o);
   model.provenance.seed = ctx.common.seed;
   model.provenance.extra["command"] = provenance_json(ctx, {a.data});
   save_model(ctx.common.out, model);
+  checkpoint.remove();
   const Provenance& p = model.provenance;
   log_info(ctx, "written", "model -> " + ctx.common.out + " (" + to_string(model.convention) +
                                " convention; " + std::to_string(p.iterations) + " iterations, " +
@@ -153,6 +178,7 @@ void add_fit_command(CLI::App& app, Context& ctx) {
   sub->add_option("--tolerance", args->tolerance, "Largest per-sample gradient entry at convergence")
       ->check(CLI::PositiveNumber);
   add_common_options(*sub, ctx.common);
+  add_checkpoint_options(*sub, args->checkpoint);
   sub->footer(
       "Penalties are per sample (the objectives are averages over samples). Without --l2/--l1,\n"
       "pseudo-likelihood chooses l2 and screening chooses l1 on held-out data (the last 20% of\n"
@@ -161,6 +187,9 @@ void add_fit_command(CLI::App& app, Context& ctx) {
       "fits units [(K-1)N_units/N, K N_units/N) and writes a shard file; `spinfer merge` checks the\n"
       "shards (same input checksum and settings, all K present once) and writes the model, equal\n"
       "to the unsharded fit. Automatic penalties are chosen identically in every shard.\n\n"
+      "Checkpoints (pseudo-likelihood, screening): SIGTERM, SIGINT or SIGUSR1 stop the fit after\n"
+      "the current round with a checkpoint (exit 128 + signal); --resume continues it to the same\n"
+      "model, bit for bit. A stop during the held-out penalty choice repeats that choice.\n\n"
       "Example:\n  spinfer fit recording.npz --method pseudo-likelihood --out model.json\n"
       "  spinfer fit recording.npz --l2 1e-4 --shard 2/8 --out part-2.json\n");
   sub->callback([&ctx, args] { ctx.run = [&ctx, args] { return run_fit(ctx, *args); }; });

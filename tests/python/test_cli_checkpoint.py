@@ -293,5 +293,65 @@ def test_long_commands_stop_on_sigterm_without_output(cli, long_inputs, tmp_path
     time.sleep(0.3)  # inside the computation
     code, err = stop(p, signal.SIGTERM)
     assert code == 128 + signal.SIGTERM, err
-    assert err.strip().splitlines()[-1] == "spinfer: interrupted by SIGTERM"
-    assert os.listdir(tmp_path) == []
+    if command[0] == "fit":  # fits keep a checkpoint (see test_fit_stopped_twice_resumes_...)
+        assert err.strip().splitlines()[-1].startswith("spinfer: interrupted by SIGTERM; checkpoint written to")
+        assert os.listdir(tmp_path) == ["out.json.checkpoint"]
+    else:
+        assert err.strip().splitlines()[-1] == "spinfer: interrupted by SIGTERM"
+        assert os.listdir(tmp_path) == []
+
+
+@pytest.fixture(scope="module")
+def fit_recording(tmp_path_factory):
+    """120000 x 70 correlated binary data: a tight pseudo-likelihood fit takes tens of rounds."""
+    d = tmp_path_factory.mktemp("fitrec")
+    rng = np.random.default_rng(5)
+    z = rng.normal(size=(120000, 3))
+    load = rng.normal(0, 0.7, (3, 70))
+    X = (rng.normal(size=(120000, 70)) + z @ load > 0.6).astype(np.uint8)
+    np.save(d / "x.npy", X)
+    return d / "x.npy"
+
+
+def optimiser_rounds(path):
+    s = saved_state(path)
+    return s["optimiser"]["rounds"] if s and s.get("stage") == "final" else -1
+
+
+@pytest.mark.parametrize("extra", [[], ["--shard", "2/3"], ["--variant", "symmetric"]],
+                         ids=["per-variable", "shard", "symmetric"])
+def test_fit_stopped_twice_resumes_to_the_uninterrupted_model(cli, fit_recording, tmp_path, extra):
+    """Oracle: the same fit run without interruption; the resumed model must be identical."""
+    args = ["fit", fit_recording, "--l2", "1e-5", "--tolerance", "1e-10", "--max-iterations", 5000,
+            *extra]
+    reference = tmp_path / "reference.json"
+    r = run(cli, *args, "--out", reference)
+    assert r.returncode == 0, r.stderr
+    out = tmp_path / "model.json"
+    ckpt = tmp_path / "model.json.checkpoint"
+    reached = -1
+    for k, sig in enumerate((signal.SIGTERM, signal.SIGUSR1)):
+        resume = ["--resume"] if k else []
+        p = start(cli, *args, "--out", out, "--checkpoint-every", 0, *resume)
+        wait_until(p, lambda: optimiser_rounds(ckpt) > reached + 1, f"round {reached + 2}")
+        code, err = stop(p, sig)
+        assert code == 128 + sig, err
+        assert "checkpoint written to" in err
+        assert not out.exists()
+        reached = optimiser_rounds(ckpt)
+    r = run(cli, *args, "--out", out, "--resume", "--threads", 1)
+    assert r.returncode == 0, r.stderr
+    assert not ckpt.exists()
+    a, b = json.loads(reference.read_text()), json.loads(out.read_text())
+    if extra and extra[0] == "--shard":
+        assert a["fits"]["coefficients"] == b["fits"]["coefficients"]
+        assert a["fits"]["fields"] == b["fits"]["fields"]
+    else:
+        assert a["fields"] == b["fields"] and a["couplings"] == b["couplings"]
+        assert a["provenance"]["iterations"] == b["provenance"]["iterations"]
+    # A different penalty is refused.
+    p = start(cli, *args[:2], "--l2", "2e-5", *args[4:], "--out", out, "--force", "--checkpoint-every", 0)
+    wait_until(p, lambda: optimiser_rounds(ckpt) >= 1, "round 1")
+    stop(p, signal.SIGTERM)
+    r = run(cli, *args, "--out", tmp_path / "x.json", "--checkpoint", ckpt, "--resume")
+    assert r.returncode == 65 and "settings/l2" in r.stderr
