@@ -64,6 +64,7 @@ int run_fit_shard(const Context& ctx, const FitArgs& a, const SpinMatrix& data,
                            " (" + std::to_string(data.rows()) + " samples) with " + a.method);
   ShardFile file;
   file.fits = fit_model_units(data, o, units);
+  if (!ctx.root()) return kOk;  // MPI: every rank holds the same fits; rank 0 writes them
   file.manifest = shard_manifest(ctx, a, data, shard);
   write_shard_file(ctx.common.out, file);
   const Provenance& p = file.fits.provenance;
@@ -82,7 +83,7 @@ int run_fit_shard(const Context& ctx, const FitArgs& a, const SpinMatrix& data,
 
 int run_fit(const Context& ctx, const FitArgs& a) {
   if (ctx.common.out.empty()) throw InputError("--out is required");
-  check_output_path(ctx.common.out, ctx.common.force);
+  if (ctx.root()) check_output_path(ctx.common.out, ctx.common.force);
   nlohmann::json settings = fit_settings(a);
   if (a.shard_from_slurm) settings["shard"] = [] {
     const ShardChoice c = shard_from_slurm();
@@ -116,6 +117,7 @@ int run_fit(const Context& ctx, const FitArgs& a) {
   if (!a.output_convention.empty()) o.convention = parse_convention(a.output_convention);
   o.progress = progress_logger(ctx, a.method);
   o.checkpoint = checkpoint.hooks(std::move(resume));
+  o.team = ctx.team;  // MPI ranks share the samples (every rank reads the whole file)
   if (!a.shard.empty() && a.shard_from_slurm)
     throw InputError("--shard and --shard-from-slurm exclude each other");
   if (!a.shard.empty() || a.shard_from_slurm) {
@@ -124,9 +126,11 @@ int run_fit(const Context& ctx, const FitArgs& a) {
     return rc;
   }
   log_info(ctx, "fit", "fitting " + std::to_string(data.rows()) + " samples x " +
-                           std::to_string(data.cols()) + " units with " + a.method);
+                           std::to_string(data.cols()) + " units with " + a.method +
+                           (ctx.ranks() > 1 ? " on " + std::to_string(ctx.ranks()) + " ranks" : ""));
   IsingModel model = fit_model(data, o);
   model.provenance.seed = ctx.common.seed;
+  if (!ctx.root()) return kOk;  // every rank holds the same model; rank 0 writes it
   model.provenance.extra["command"] = provenance_json(ctx, {a.data});
   save_model(ctx.common.out, model);
   checkpoint.remove();

@@ -22,7 +22,7 @@ struct SampleArgs {
 };
 
 int run_sample(const Context& ctx, const SampleArgs& a) {
-  check_output_path(ctx.common.out, ctx.common.force);
+  if (ctx.root()) check_output_path(ctx.common.out, ctx.common.force);
   const IsingModel model = load_model(a.model);
   SamplerOptions o;
   o.method = a.method;
@@ -35,7 +35,9 @@ int run_sample(const Context& ctx, const SampleArgs& a) {
   o.seed = ctx.common.seed;
   o.threads = ctx.common.threads;
   o.progress = progress_logger(ctx, "sampling");
+  o.team = ctx.team;  // MPI ranks share the chains; rank 0 receives every sample
   SampleSet s = sample(model, o);
+  if (!ctx.root()) return kOk;
   if (!model.names.empty()) s.samples.set_names(model.names);
   write_matrix(ctx.common.out, s.samples);
   const auto& d = s.diagnostics;

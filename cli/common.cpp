@@ -31,7 +31,7 @@ void add_common_options(CLI::App& sub, Common& c, bool with_out) {
 }
 
 void log_info(const Context& ctx, const std::string& event, const std::string& message) {
-  if (ctx.common.quiet) return;
+  if (ctx.common.quiet || !ctx.root()) return;
   if (ctx.common.log_format == "json") {
     const auto now = std::chrono::system_clock::to_time_t(std::chrono::system_clock::now());
     char ts[32];
@@ -84,7 +84,7 @@ nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string
   nlohmann::json files = nlohmann::json::array();
   for (const auto& f : inputs) files.push_back({{"path", f}, {"fnv1a64", file_checksum(f)}});
   return {{"command_line", ctx.argv}, {"version", spinfer::version()}, {"seed", ctx.common.seed},
-          {"threads", ctx.common.threads}, {"inputs", files}};
+          {"threads", ctx.common.threads}, {"ranks", ctx.ranks()}, {"inputs", files}};
 }
 
 std::optional<double> parse_penalty(const std::string& text, const std::string& option) {

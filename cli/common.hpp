@@ -10,6 +10,7 @@
 #include <nlohmann/json.hpp>
 
 #include "spinfer/progress.hpp"
+#include "spinfer/team.hpp"
 
 namespace spinfer::cli {
 
@@ -38,12 +39,17 @@ struct Context {
   Common common;
   std::vector<std::string> argv;           ///< the full command line, for provenance
   std::function<int()> run;                ///< set by the chosen subcommand
+  /// The ranks of an MPI job (main.cpp; a SoloTeam otherwise). Only rank 0 logs, writes outputs
+  /// and prints the summary.
+  const spinfer::Team* team = nullptr;
+  bool root() const { return !team || team->root(); }
+  int ranks() const { return team ? team->size() : 1; }
 };
 
 /// Adds --threads/--seed/--out/--force/--quiet/--log-format to a subcommand.
 void add_common_options(CLI::App& sub, Common& c, bool with_out = true);
 
-/// Log a message on stderr (plain "spinfer: ..." line or one JSON object per line).
+/// Log a message on stderr (plain "spinfer: ..." line or one JSON object per line); rank 0 only.
 void log_info(const Context& ctx, const std::string& event, const std::string& message);
 
 /// Print the final machine-readable summary line on stdout (a JSON object).
@@ -53,7 +59,8 @@ void print_summary(const std::string& json_line);
 /// and stops the computation once a stop signal is pending (installs the handlers; signals.hpp).
 spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string& stage);
 
-/// Provenance for outputs: command line, version, seed, threads, and a checksum of each input.
+/// Provenance for outputs: command line, version, seed, threads, MPI ranks, and a checksum of
+/// each input.
 nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string>& inputs);
 
 /// 64-bit FNV-1a checksum of a file's bytes, as 16 hex digits (throws FileError if unreadable).

@@ -23,6 +23,7 @@ void copy_iterative_options(const FitOptions& o, Options& out) {
   out.progress = o.progress;
   out.representation = o.representation;
   out.checkpoint = o.checkpoint;
+  out.team = o.team;
 }
 
 }  // namespace

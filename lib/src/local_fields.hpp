@@ -13,6 +13,14 @@
 // Work is split over fixed chunks of units (columns of Theta) that do not depend on the thread
 // count, and each chunk runs over all rows in a fixed order, so results are bit-identical for
 // any number of threads. Memory: O(N^2 + N * block rows) per thread; never T x N doubles.
+//
+// Sums over rows (loss sums, gradients, spin means, second moments) are formed per fixed segment
+// of the selected kernel rows (about 64 segments, whole kernel blocks) and the segment sums are
+// added order-free (order_free_sum.hpp), so the value does not depend on how segments are
+// grouped. With a team of more than one rank (team.hpp), rank r evaluates only its contiguous
+// share of the segments (Team::share) and the level sums are added over the ranks: every rank
+// gets the single-process result bit for bit, whatever the rank count. The total weight and
+// sample count are computed over all selected rows on every rank.
 #pragma once
 
 #include <cstdint>
@@ -24,6 +32,7 @@
 
 #include "spinfer/patterns.hpp"
 #include "spinfer/spin_matrix.hpp"
+#include "spinfer/team.hpp"
 
 namespace spinfer::detail {
 
@@ -63,13 +72,14 @@ class PreparedData {
 /// A selection of rows of prepared data (a training fold, or everything).
 class LocalFields {
  public:
-  /// All rows.
-  explicit LocalFields(const PreparedData& prepared, int threads);
+  /// All rows. `team` (may be null: this process alone) shares the rows out, see above.
+  explicit LocalFields(const PreparedData& prepared, int threads, const Team* team = nullptr);
   /// Only the listed ranges of original rows (e.g. all folds but one).
-  LocalFields(const PreparedData& prepared, const std::vector<RowRange>& ranges, int threads);
+  LocalFields(const PreparedData& prepared, const std::vector<RowRange>& ranges, int threads,
+              const Team* team = nullptr);
 
   std::int64_t units() const { return N_; }
-  std::int64_t samples() const { return samples_; }   ///< original rows selected
+  std::int64_t samples() const { return samples_; }   ///< original rows selected (all ranks)
   double total_weight() const { return total_weight_; }
   const PreparedData& prepared() const { return *prep_; }
 
@@ -92,15 +102,28 @@ class LocalFields {
   int threads() const { return threads_; }
 
  private:
+  // Level sums (order_free_sum.hpp) of units [i0, i0 + nc) over this rank's segments; rows of
+  // L0/L1/L2: loss, then (with the gradient) grad_h and the N gradient entries.
   void evaluate_chunk(LocalLoss loss, const Eigen::MatrixXd& theta, const Eigen::VectorXd& h,
-                      bool gradient, std::int64_t i0, std::int64_t nc, Eigen::VectorXd& loss_sums,
-                      Eigen::MatrixXd& grad, Eigen::VectorXd& grad_h) const;
+                      bool gradient, std::int64_t i0, std::int64_t nc, const Eigen::VectorXd& bound,
+                      Eigen::MatrixXd& L0, Eigen::MatrixXd& L1, Eigen::MatrixXd& L2) const;
   double weight(std::int64_t r) const { return weights_.empty() ? 1.0 : weights_[std::size_t(r)]; }
+  std::int64_t segments() const { return std::int64_t(segment_start_.size()) - 1; }
+  template <typename Fn>
+  void for_each_piece(std::int64_t segment, Fn&& fn) const;
+  // Adds level sums (3 x n) over the ranks, then replaces them by the n values.
+  void finish_sums(std::vector<double>& levels, std::size_t n) const;
 
   const PreparedData* prep_;
   const SpinMatrix* rows_;          // the matrix the kernels iterate over
-  std::vector<RowRange> ranges_;    // ranges of rows_ to iterate
   std::vector<double> weights_;     // per row of rows_; empty = all 1
+  // Segments of the selected rows of rows_ (the same for every thread and rank count): segment
+  // s is pieces_[segment_start_[s] .. segment_start_[s + 1]).
+  std::vector<RowRange> pieces_;
+  std::vector<std::size_t> segment_start_;
+  double segment_weight_max_ = 0;   // the largest total weight of one segment (sum bounds)
+  std::int64_t first_segment_ = 0, end_segment_ = 0;  // this rank's segments
+  const Team* team_ = nullptr;      // set only when it has more than one rank
   std::int64_t N_ = 0, samples_ = 0;
   double total_weight_ = 0;
   int threads_ = 1;

@@ -382,7 +382,7 @@ struct Choice {
 };
 
 Choice choose_penalty(const PreparedData& prepared, const LocalFitSettings& base, bool l1_kind,
-                      int threads) {
+                      int threads, const Team* team) {
   const SpinMatrix& data = prepared.original();
   const std::int64_t T = data.rows(), N = data.cols();
   const std::int64_t T_train = T - T / 5;
@@ -398,8 +398,8 @@ Choice choose_penalty(const PreparedData& prepared, const LocalFitSettings& base
     c.report = {{"rule", "too few samples to hold out (< 50): fixed scale"}, {"chosen", c.penalty}};
     return c;
   }
-  LocalFields train(prepared, {RowRange{0, T_train}}, threads);
-  LocalFields valid(prepared, {RowRange{T_train, T}}, threads);
+  LocalFields train(prepared, {RowRange{0, T_train}}, threads, team);
+  LocalFields valid(prepared, {RowRange{T_train, T}}, threads, team);
   LocalFitSettings s = base;
   s.tolerance = std::max(base.tolerance, 1e-4);
   s.progress = nullptr;
@@ -505,7 +505,7 @@ FinalFit prepare_final_fit(const SpinMatrix& data, const LocalFitRequest& req,
     else s.l2 = 0;
     if (s.l1 < 0 || s.l2 < 0) throw InputError(s.stage + ": penalties must be >= 0 or automatic");
     if (req.checkpoint.save) req.checkpoint.save({{"stage", "penalty-choice"}});
-    Choice c = choose_penalty(prepared, s, l1_kind, req.threads);
+    Choice c = choose_penalty(prepared, s, l1_kind, req.threads, req.team);
     (l1_kind ? s.l1 : s.l2) = c.penalty;
     ff.selection = c.report;
     ff.selection["kind"] = l1_kind ? "l1" : "l2";
@@ -569,7 +569,7 @@ UnitFits fit_local_units(const SpinMatrix& data, const LocalFitRequest& req,
                        "within 0.." + std::to_string(data.cols() - 1));
   PreparedData prepared(data, req.representation, req.threads);
   const FinalFit ff = prepare_final_fit(data, req, prepared);
-  LocalFields all(prepared, req.threads);
+  LocalFields all(prepared, req.threads, req.team);
   const LocalFitResult r = run_final_fit(ff, req, all, &units);
   UnitFits out;
   out.total_units = data.cols();
@@ -597,7 +597,7 @@ IsingModel fit_local_model(const SpinMatrix& data, const LocalFitRequest& req) {
   }
   PreparedData prepared(data, req.representation, req.threads);
   const FinalFit ff = prepare_final_fit(data, req, prepared);
-  LocalFields all(prepared, req.threads);
+  LocalFields all(prepared, req.threads, req.team);
   const LocalFitResult r = run_final_fit(ff, req, all, nullptr);
   IsingModel m;
   m.convention = Convention::spin;

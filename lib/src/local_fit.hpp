@@ -73,6 +73,7 @@ struct LocalFitRequest {
   LocalFitSettings settings;  ///< l1/l2 may be automatic_penalty here
   int threads = 0;
   std::string representation = "auto";
+  const Team* team = nullptr;  ///< shares the rows out over ranks (local_fields.hpp); may be null
   std::optional<IsingModel> warm_start;
   std::string method;
   nlohmann::json extra = nlohmann::json::object();

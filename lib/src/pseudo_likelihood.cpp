@@ -17,6 +17,7 @@ detail::LocalFitRequest detail::pseudo_likelihood_request(const PseudoLikelihood
   req.settings.stage = "pseudo-likelihood";
   req.threads = o.threads;
   req.representation = o.representation;
+  req.team = o.team;
   req.warm_start = o.warm_start;
   req.method = "pseudo-likelihood";
   req.extra = {{"variant", o.symmetric ? "symmetric" : "per-variable"}};

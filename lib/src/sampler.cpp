@@ -8,6 +8,8 @@
 #include <functional>
 #include <limits>
 #include <sstream>
+#include <stdexcept>
+#include <tuple>
 
 #include "sampler_engine.hpp"
 #include "sampler_kernels.hpp"
@@ -460,6 +462,7 @@ class Driver {
   void run(const std::string& stage, const std::vector<std::int64_t>& steps,
            const std::function<void(std::size_t, std::int64_t)>& after) {
     const std::int64_t C = std::int64_t(chains_.size());
+    if (C == 0) return;  // a rank of a team with no chain of its own
     const double updates_per_step = double(engine_.units()) * double(engine_.slots()) * double(C);
     // First round: about 2e5 single-unit updates in all, then scale to the measured rate.
     std::int64_t round = std::max<std::int64_t>(1, std::int64_t(2e5 / updates_per_step));
@@ -552,6 +555,54 @@ std::vector<double> normalise_ladder(std::vector<double> ladder, double target,
   return out;
 }
 
+namespace {
+
+// Team runs (SamplerOptions::team): each rank holds the series of its own chains [c0, c1) of
+// `series`; afterwards every rank holds every chain's series, in chain order.
+void share_series(const Team& team, ChainSeries& series, std::int64_t c0, std::int64_t c1) {
+  std::vector<double> lengths, values;
+  for (std::int64_t c = c0; c < c1; ++c) {
+    const auto& x = series[std::size_t(c)];
+    lengths.push_back(double(x.size()));
+    values.insert(values.end(), x.begin(), x.end());
+  }
+  lengths = team.all_gather(lengths);
+  values = team.all_gather(values);
+  std::size_t at = 0;
+  for (std::size_t c = 0; c < series.size(); ++c) {
+    const auto n = std::size_t(lengths[c]);
+    series[c].assign(values.begin() + std::ptrdiff_t(at), values.begin() + std::ptrdiff_t(at + n));
+    at += n;
+  }
+}
+
+// Team runs: the counters the diagnostics read, of every chain in chain order (the other fields
+// of the returned chains are left empty).
+std::vector<Chain> share_counters(const Team& team, const std::vector<Chain>& mine,
+                                  std::int64_t C, std::size_t slots) {
+  std::vector<double> local;
+  for (const Chain& ch : mine) {
+    local.push_back(double(ch.steps));
+    for (const auto* v : {&ch.slot_flips, &ch.slot_updates, &ch.swap_tries, &ch.swap_accepts})
+      for (auto x : *v) local.push_back(double(x));
+  }
+  const std::vector<double> all = team.all_gather(local);
+  std::vector<Chain> out(static_cast<std::size_t>(C));
+  const double* x = all.data();
+  for (Chain& ch : out) {
+    ch.steps = std::int64_t(*x++);
+    ch.slot_flips.resize(slots);
+    ch.slot_updates.resize(slots);
+    ch.swap_tries.resize(slots - 1);
+    ch.swap_accepts.resize(slots - 1);
+    for (auto* v : {&ch.slot_flips, &ch.slot_updates, &ch.swap_tries, &ch.swap_accepts})
+      for (auto& y : *v) y = std::int64_t(*x++);
+  }
+  return out;
+}
+
+}  // namespace
+
 EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const EngineRequest& rq) {
   validate_model(model, "model");
   check_sampler_options(o);
@@ -561,9 +612,17 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
   const std::size_t K = engine.slots(), target = rq.target_slot;
   const auto nC = static_cast<std::size_t>(C);
 
+  // This process runs chains [c0, c1) (all of them without a team); chains[c - c0] is chain c and
+  // draws from stream c whichever rank runs it.
+  const Team* team = shared_work(rq.team) ? rq.team : nullptr;
+  if (team && (rq.persistent || rq.all_slot_energies))
+    throw std::logic_error("sampler: a team run keeps no chain states or per-slot energies");
+  std::int64_t c0 = 0, c1 = C;
+  if (team) std::tie(c0, c1) = team->my_share(C);
+  const auto nL = static_cast<std::size_t>(c1 - c0);
   std::vector<Chain> chains;
-  chains.reserve(nC);
-  for (std::int64_t c = 0; c < C; ++c) chains.push_back(engine.make_chain(o.seed, std::uint64_t(c)));
+  chains.reserve(nL);
+  for (std::int64_t c = c0; c < c1; ++c) chains.push_back(engine.make_chain(o.seed, std::uint64_t(c)));
   if (rq.persistent && !rq.persistent->empty()) {
     const ChainStates& st = *rq.persistent;
     if (st.chains != C || st.units != N || std::int64_t(st.active.size()) != C * N)
@@ -590,7 +649,7 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
   // ---- burn-in ----
   const std::int64_t fixed_burn = std::max<std::int64_t>(o.burn_in, 0);
   if (fixed_burn > 0)
-    driver.run("burn-in", std::vector<std::int64_t>(nC, fixed_burn),
+    driver.run("burn-in", std::vector<std::int64_t>(nL, fixed_burn),
                [](std::size_t, std::int64_t) {});
   std::int64_t thin = o.thin;
   std::int64_t pilot = 0;
@@ -601,14 +660,15 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     double tau = 1;
     for (;;) {
       const std::int64_t more = length - pilot;
-      driver.run("burn-in (pilot)", std::vector<std::int64_t>(nC, more),
+      driver.run("burn-in (pilot)", std::vector<std::int64_t>(nL, more),
                  [&](std::size_t c, std::int64_t) {
                    for (std::size_t s = 0; s < K; ++s) {
                      if (!rq.all_slot_energies && s != target) continue;
                      const Chain& ch = chains[c];
-                     trace[s][c].push_back(ch.replicas[ch.at_slot[s]].E);
+                     trace[s][c + std::size_t(c0)].push_back(ch.replicas[ch.at_slot[s]].E);
                    }
                  });
+      if (team) share_series(*team, trace[target], c0, c1);  // every rank tunes on all chains
       pilot = length;
       tau = 0;
       for (std::size_t s = 0; s < K; ++s) {
@@ -646,7 +706,9 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     steps[std::size_t(c)] = kept[std::size_t(c)] * thin;
   }
   const std::int64_t rows = o.samples;
-  std::vector<std::uint8_t> bits(rq.keep_states ? std::size_t(rows * N) : 0);
+  const std::int64_t row0 = offset[std::size_t(c0)];  // first row of this process's chains
+  const std::int64_t my_rows = offset[std::size_t(c1)] - row0;
+  std::vector<std::uint8_t> bits(rq.keep_states ? std::size_t(my_rows * N) : 0);
   res.set.energies.assign(std::size_t(rows), 0.0);
   res.set.chain.assign(std::size_t(rows), 0);
   std::vector<double> magnetisation(std::size_t(rows), 0.0);
@@ -663,16 +725,17 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     std::fill(ch.swap_accepts.begin(), ch.swap_accepts.end(), 0);
   }
   const double lo = engine.low();
-  driver.run("sampling", steps, [&](std::size_t c, std::int64_t i) {
+  driver.run("sampling", std::vector<std::int64_t>(steps.begin() + c0, steps.begin() + c1),
+             [&](std::size_t c, std::int64_t i) {
     if ((i + 1) % thin != 0) return;
     const Chain& ch = chains[c];
-    const std::int64_t row = offset[c] + (i + 1) / thin - 1;
+    const std::int64_t row = offset[c + std::size_t(c0)] + (i + 1) / thin - 1;
     const Replica& r = ch.replicas[ch.at_slot[target]];
     res.set.energies[std::size_t(row)] = r.E;
-    res.set.chain[std::size_t(row)] = std::int32_t(c);
+    res.set.chain[std::size_t(row)] = std::int32_t(c + std::size_t(c0));
     magnetisation[std::size_t(row)] = engine.magnetisation(r);
     if (rq.keep_states) {
-      std::uint8_t* out = bits.data() + row * N;
+      std::uint8_t* out = bits.data() + (row - row0) * N;
       const std::vector<double>& v = engine.values(r);
       for (std::int64_t k = 0; k < N; ++k) out[k] = v[std::size_t(k)] != lo;
     }
@@ -680,8 +743,25 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
       for (std::size_t s = 0; s < K; ++s) res.slot_energies[s][c].push_back(ch.replicas[ch.at_slot[s]].E);
   });
   d.sweeps_per_chain = d.burn_in + steps[0];
-  res.set.samples = rq.keep_states ? SpinMatrix(std::move(bits), rows, N, model.convention)
-                                   : SpinMatrix(std::vector<std::uint8_t>(), 0, N, model.convention);
+  std::int64_t kept_rows = rq.keep_states ? rows : 0;
+  if (team) {
+    // Rows are chain by chain and ranks hold consecutive chains, so the rank-order
+    // concatenation of the local rows is the whole table.
+    auto mine = [&](const std::vector<double>& v) {
+      return std::vector<double>(v.begin() + row0, v.begin() + row0 + my_rows);
+    };
+    res.set.energies = team->all_gather(mine(res.set.energies));
+    magnetisation = team->all_gather(mine(magnetisation));
+    for (std::int64_t c = 0; c < C; ++c)
+      std::fill(res.set.chain.begin() + offset[std::size_t(c)],
+                res.set.chain.begin() + offset[std::size_t(c) + 1], std::int32_t(c));
+    if (rq.keep_states) {
+      bits = team->gather(bits);
+      if (!team->root()) kept_rows = 0;
+    }
+    chains = share_counters(*team, chains, C, K);
+  }
+  res.set.samples = SpinMatrix(std::move(bits), kept_rows, N, model.convention);
 
   // ---- diagnostics ----
   ChainSeries energy(nC), mag(nC);
@@ -752,6 +832,7 @@ SampleSet sample(const IsingModel& model, const SamplerOptions& options) {
   } else {
     rq.ladder = {options.temperature};
   }
+  rq.team = options.team;
   return detail::run_engine(model, options, rq).set;
 }
 

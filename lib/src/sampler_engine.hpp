@@ -15,6 +15,8 @@ struct EngineRequest {
   bool all_slot_energies = false;   ///< fill slot_energies and tune on the slowest slot
   ChainStates* persistent = nullptr;  ///< start from these states (if not empty); store the final
                                       ///< states of the target slot (single-temperature runs)
+  const Team* team = nullptr;       ///< ranks sharing the chains (SamplerOptions::team); not
+                                    ///< with persistent or all_slot_energies
 };
 
 struct EngineResult {

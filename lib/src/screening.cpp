@@ -17,6 +17,7 @@ detail::LocalFitRequest detail::screening_request(const ScreeningOptions& o) {
   req.settings.stage = "screening";
   req.threads = o.threads;
   req.representation = o.representation;
+  req.team = o.team;
   req.warm_start = o.warm_start;
   req.method = "screening";
   req.extra = {{"variant", o.logarithmic ? "log-rise" : "rise"}, {"symmetric", o.symmetric}};

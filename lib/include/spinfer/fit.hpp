@@ -13,6 +13,7 @@
 #include "spinfer/model.hpp"
 #include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
+#include "spinfer/team.hpp"
 
 namespace spinfer {
 
@@ -39,6 +40,9 @@ struct FitOptions {
   /// pseudo-likelihood / screening: periodic and on-interrupt optimiser state, and resuming
   /// from it (bit-identical to an uninterrupted fit). Closed forms ignore it.
   CheckpointHooks checkpoint;
+  /// Pseudo-likelihood and screening: ranks sharing the samples (PseudoLikelihoodOptions::team).
+  /// The closed forms ignore it (every rank computes the same moments).
+  const Team* team = nullptr;
 };
 
 /// The method names accepted by fit_model.

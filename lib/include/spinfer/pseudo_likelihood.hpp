@@ -34,6 +34,7 @@
 #include "spinfer/model.hpp"
 #include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
+#include "spinfer/team.hpp"
 
 namespace spinfer {
 
@@ -54,6 +55,10 @@ struct PseudoLikelihoodOptions {
   /// 40 % or more, and the sparse kernel below 10 % activity. Reported in provenance.extra.
   std::string representation = "auto";
   CheckpointHooks checkpoint;            ///< save / resume the optimiser state (checkpoint.hpp)
+  /// Ranks sharing the samples (team.hpp): each takes a contiguous share of the rows and the
+  /// per-iteration sums are added over ranks, so every rank returns the single-process result bit
+  /// for bit (local_fields.hpp). Null: this process alone. Every rank must make the same call.
+  const Team* team = nullptr;
 };
 
 /// Fits by pseudo-likelihood. Provenance: method "pseudo-likelihood", l1, l2 (the values used),

@@ -64,6 +64,7 @@
 #include "spinfer/model.hpp"
 #include "spinfer/progress.hpp"
 #include "spinfer/spin_matrix.hpp"
+#include "spinfer/team.hpp"
 
 namespace spinfer {
 
@@ -85,6 +86,14 @@ struct SamplerOptions {
   std::uint64_t seed = 0;
   int threads = 1;                     ///< <= 0: automatic (resolve_threads)
   ProgressCallback progress;           ///< called about every 0.2 s, on the calling thread
+  /// sample() only: ranks sharing the chains (team.hpp; null = this process alone). Rank r runs
+  /// its contiguous block of chains (Team::share), each still on its own stream Rng(seed, c), so
+  /// the samples equal the single-process ones bit for bit; automatic burn-in and thinning are
+  /// tuned on the pilot energies of all chains. The samples matrix is complete on rank 0 only
+  /// (0 rows elsewhere); energies, chain indices and diagnostics are complete on every rank.
+  /// Every rank must make the same call. model_statistics(), temperature_scan() and
+  /// continue_chains() ignore it.
+  const Team* team = nullptr;
 };
 
 struct SamplerDiagnostics {

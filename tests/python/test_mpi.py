@@ -1,0 +1,122 @@
+"""The MPI build of `spinfer` (-DSPINFER_MPI=ON): a 3-rank job against the same command started
+without a launcher (one process). Reference: the single-process run. Fits may differ from it only
+through the order of the additions over ranks (max abs difference 1e-10); samples must be equal
+bit for bit (chain c keeps random stream c on whichever rank runs it).
+
+Needs SPINFER_MPI_CLI (the MPI build's `spinfer`, e.g. build/mpi/spinfer; .ci/test sets it) and
+an `mpirun` on PATH. Data: the invented demo recording data/neurons (data/README.md), first 120 s.
+"""
+import json
+import os
+import shutil
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+ROOT = Path(__file__).resolve().parents[2]
+NEURONS = ROOT / "data" / "neurons"
+RANKS = 3
+TIMEOUT = 300  # seconds; a hung job fails the test instead of hanging the suite
+
+
+@pytest.fixture(scope="module")
+def mpi_cli():
+    path = os.environ.get("SPINFER_MPI_CLI")
+    if not path:
+        pytest.skip("SPINFER_MPI_CLI is not set (path of a spinfer built with -DSPINFER_MPI=ON; "
+                    ".ci/test builds one in build/mpi)")
+    assert Path(path).is_file() and os.access(path, os.X_OK), f"SPINFER_MPI_CLI={path} is not a program"
+    assert shutil.which("mpirun"), "SPINFER_MPI_CLI is set but mpirun is not on PATH"
+    return str(Path(path).resolve())
+
+
+def launcher():
+    """mpirun with RANKS ranks; Open MPI refuses more ranks than cores without --oversubscribe."""
+    version = subprocess.run(["mpirun", "--version"], capture_output=True, text=True).stdout
+    extra = ["--oversubscribe"] if "Open MPI" in version else []
+    return ["mpirun", *extra, "-n", str(RANKS)]
+
+
+def run(args, mpi=False, timeout=TIMEOUT):
+    env = dict(os.environ)
+    if not mpi:
+        env["SPINFER_USE_MPI"] = "0"  # one process even if this test itself runs under a launcher
+    cmd = (launcher() if mpi else []) + [str(a) for a in args]
+    return subprocess.run(cmd, capture_output=True, text=True, timeout=timeout, env=env)
+
+
+@pytest.fixture(scope="module")
+def recording(mpi_cli, tmp_path_factory):
+    """The demo spikes binned at 10 ms over the first 120 s: 12,000 bins x 40 neurons."""
+    out = tmp_path_factory.mktemp("mpi") / "neurons.npz"
+    r = run([mpi_cli, "bin", NEURONS / "spikes.csv", "--bin-width", 0.01, "--start", 0,
+             "--stop", 120, "--out", out, "--quiet"])
+    assert r.returncode == 0, r.stderr
+    return out
+
+
+def load_model(path):
+    m = json.loads(Path(path).read_text())
+    return np.asarray(m["fields"]), np.asarray(m["couplings"]), m
+
+
+@pytest.mark.parametrize("variant", ["symmetric", "per-variable"])
+def test_fit_on_three_ranks_equals_one_process(mpi_cli, recording, tmp_path, variant):
+    # Default penalty: l2 chosen on held-out rows, so the held-out path is shared too.
+    common = ["fit", recording, "--method", "pseudo-likelihood", "--variant", variant,
+              "--threads", 1]
+    plain, shared = tmp_path / "plain.json", tmp_path / "shared.json"
+    r = run([mpi_cli, *common, "--out", plain])
+    assert r.returncode == 0, r.stderr
+    r = run([mpi_cli, *common, "--out", shared], mpi=True)
+    assert r.returncode == 0, r.stderr
+    # Only rank 0 prints the summary line.
+    summaries = [line for line in r.stdout.splitlines() if line.startswith("{")]
+    assert len(summaries) == 1 and json.loads(summaries[0])["command"] == "fit"
+    h0, J0, m0 = load_model(plain)
+    h1, J1, m1 = load_model(shared)
+    difference = max(np.abs(h1 - h0).max(), np.abs(J1 - J0).max())
+    assert difference < 1e-10, f"max |MPI - plain| = {difference:.3g}"
+    assert m1["provenance"]["iterations"] == m0["provenance"]["iterations"]
+    assert m1["provenance"]["l2"] == pytest.approx(m0["provenance"]["l2"], rel=1e-12)
+    assert m1["provenance"]["extra"]["command"]["ranks"] == RANKS
+    assert m0["provenance"]["extra"]["command"]["ranks"] == 1
+
+
+def test_sample_on_three_ranks_equals_one_process(mpi_cli, tmp_path):
+    # 5 chains over 3 ranks (2, 2, 1 chains); automatic burn-in and thinning from the pilot of all
+    # chains; 3001 samples so the chains keep unequal counts.
+    common = ["sample", NEURONS / "true_model.json", "--count", 3001, "--chains", 5, "--seed", 11,
+              "--threads", 1]
+    plain, shared = tmp_path / "plain.npy", tmp_path / "shared.npy"
+    r0 = run([mpi_cli, *common, "--out", plain])
+    assert r0.returncode == 0, r0.stderr
+    r1 = run([mpi_cli, *common, "--out", shared], mpi=True)
+    assert r1.returncode == 0, r1.stderr
+    a, b = np.load(plain), np.load(shared)
+    assert a.shape == (3001, 40)
+    assert np.array_equal(a, b)
+    s0 = json.loads(r0.stdout.strip().splitlines()[-1])
+    s1 = json.loads(r1.stdout.strip().splitlines()[-1])
+    for key in ("burn_in", "thin", "rhat_energy", "ess_energy"):
+        assert s1[key] == s0[key], key
+    assert s1["provenance"]["ranks"] == RANKS
+
+
+def test_bad_input_on_three_ranks_ends_the_job_with_exit_65(mpi_cli, tmp_path):
+    bad = tmp_path / "bad.csv"
+    bad.write_text("a,b,c\n0,1,0\n1,2,0\n0,0,1\n")  # a 2 is neither binary nor spin
+    out = tmp_path / "never.json"
+    r = run([mpi_cli, "fit", bad, "--threads", 1, "--out", out], mpi=True, timeout=120)
+    assert r.returncode == 65, r.stderr
+    assert "bad.csv" in r.stderr and "error" in r.stderr
+    assert not out.exists()
+
+
+def test_commands_that_do_not_share_work_refuse_several_ranks(mpi_cli, tmp_path):
+    r = run([mpi_cli, "stats", NEURONS / "true_model.json", "--out", tmp_path / "s.json"],
+            mpi=True, timeout=120)
+    assert r.returncode == 2
+    assert "only fit and sample" in r.stderr
