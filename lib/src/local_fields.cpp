@@ -43,9 +43,10 @@ constexpr double kDenseCacheBytes = 256.0 * 1024 * 1024;
 // Rows per kernel block: the dense kernel's GEMMs and the sparse kernel's gathers.
 std::int64_t kernel_block(bool sparse) { return sparse ? 512 : 1024; }
 
-// Rows are summed in fixed segments (about this many, at least one block each; four for the
-// sparse kernel so the order-free additions stay a small share of the work).
-constexpr std::int64_t kTargetSegments = 64;
+// Rows are summed in fixed segments of whole kernel blocks: at least 4 blocks (8 for the sparse
+// kernel) so the order-free additions stay a small share of the work (a few per cent in
+// measurements), and at most kMaxSegments segments (ranks beyond that would idle).
+constexpr std::int64_t kMaxSegments = 4096;
 
 // Fixed unit chunks (independent of the thread count, so results are too).
 std::int64_t chunk_size(std::int64_t N, bool sparse) {
@@ -169,8 +170,8 @@ LocalFields::LocalFields(const PreparedData& prepared, const std::vector<RowRang
   for (const RowRange& g : kernel_ranges) selected += g.end - g.begin;
   const std::int64_t block = kernel_block(prepared.sparse_kernel());
   const std::int64_t segment_rows =
-      block * std::max<std::int64_t>(prepared.sparse_kernel() ? 4 : 1,
-                                     (selected + kTargetSegments * block - 1) / (kTargetSegments * block));
+      block * std::max<std::int64_t>(prepared.sparse_kernel() ? 8 : 4,
+                                     (selected + kMaxSegments * block - 1) / (kMaxSegments * block));
   segment_start_.push_back(0);
   std::int64_t filled = 0;  // rows in the current segment
   double seg_weight = 0;
@@ -354,9 +355,17 @@ void LocalFields::evaluate_chunk(LocalLoss loss, const MatrixXd& theta, const Ve
   // One segment's sums, unit by unit (column k = unit i0 + k): row 0 loss, row 1 grad_h, rows
   // 2.. the gradient column; added to the level sums at the end of every segment.
   MatrixXd P(rows, nc);
+  VectorXd loss_c(nc), gh_c(nc);  // rows 0 and 1 of P while a segment runs (contiguous sums)
   std::vector<SplitGrid> grids;
-  for (std::int64_t k = 0; k < nc; ++k) grids.push_back(SplitGrid::for_bound(bound(i0 + k), segments()));
+  for (std::int64_t k = 0; k < nc; ++k) grids.push_back(SplitGrid::for_bound(bound(k), segments()));
+  auto start_segment = [&] {
+    P.setZero();
+    loss_c.setZero();
+    gh_c.setZero();
+  };
   auto add_segment = [&] {
+    P.row(0) = loss_c.transpose();
+    if (gradient) P.row(1) = gh_c.transpose();
     for (std::int64_t k = 0; k < nc; ++k)
       split_add(grids[std::size_t(k)], P.col(k).data(), L0.col(k).data(), L1.col(k).data(),
                 L2.col(k).data(), rows);
@@ -369,7 +378,7 @@ void LocalFields::evaluate_chunk(LocalLoss loss, const MatrixXd& theta, const Ve
     const VectorXd hprime = h.segment(i0, nc) - theta.middleCols(i0, nc).colwise().sum().transpose();
     MatrixXd acc_t;  // nc x N: sum_b x_bj R_bi, transposed
     for (std::int64_t seg = first_segment_; seg < end_segment_; ++seg) {
-      P.setZero();
+      start_segment();
       if (gradient) acc_t.setZero(nc, N);
       for_each_piece(seg, [&](const RowRange& g) {
         for (std::int64_t b0 = g.begin; b0 < g.end; b0 += block) {
@@ -386,9 +395,9 @@ void LocalFields::evaluate_chunk(LocalLoss loss, const MatrixXd& theta, const Ve
             for (std::int64_t i = 0; i < nc; ++i) S(i, b) = 2.0 * x[i] - 1.0;
           }
           nonlinearity(loss, H, S, weighted ? weights_.data() + b0 : nullptr, gradient, phi, R);
-          P.row(0) += phi.matrix().rowwise().sum().transpose();
+          loss_c += phi.matrix().rowwise().sum();
           if (gradient) {
-            P.row(1) += R.matrix().rowwise().sum().transpose();
+            gh_c += R.matrix().rowwise().sum();
             for (std::int64_t b = 0; b < nb; ++b) {
               const std::int32_t* j = act.indices.data() + act.offsets[std::size_t(b0 + b)];
               const std::int32_t* jend = act.indices.data() + act.offsets[std::size_t(b0 + b + 1)];
@@ -400,7 +409,7 @@ void LocalFields::evaluate_chunk(LocalLoss loss, const MatrixXd& theta, const Ve
       if (gradient) {
         // sum_b s_bj R_bi = 2 sum_b x_bj R_bi - sum_b R_bi
         P.bottomRows(N) = 2.0 * acc_t.transpose();
-        P.bottomRows(N).rowwise() -= P.row(1);
+        P.bottomRows(N).rowwise() -= gh_c.transpose();
       }
       add_segment();
     }
@@ -417,14 +426,14 @@ void LocalFields::evaluate_chunk(LocalLoss loss, const MatrixXd& theta, const Ve
       H = Hm.array();
       S = STb.middleRows(i0, nc).array();
       nonlinearity(loss, H, S, weighted ? weights_.data() + b0 : nullptr, gradient, phi, R);
-      P.row(0) += phi.matrix().rowwise().sum().transpose();
+      loss_c += phi.matrix().rowwise().sum();
       if (gradient) {
-        P.row(1) += R.matrix().rowwise().sum().transpose();
+        gh_c += R.matrix().rowwise().sum();
         P.bottomRows(N).noalias() += STb * R.matrix().transpose();  // GEMM
       }
     };
     for (std::int64_t seg = first_segment_; seg < end_segment_; ++seg) {
-      P.setZero();
+      start_segment();
       for_each_piece(seg, [&](const RowRange& g) {
         for (std::int64_t b0 = g.begin; b0 < g.end; b0 += block) {
           const std::int64_t nb = std::min(block, g.end - b0);

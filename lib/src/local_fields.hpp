@@ -15,9 +15,9 @@
 // any number of threads. Memory: O(N^2 + N * block rows) per thread; never T x N doubles.
 //
 // Sums over rows (loss sums, gradients, spin means, second moments) are formed per fixed segment
-// of the selected kernel rows (about 64 segments, whole kernel blocks) and the segment sums are
-// added order-free (order_free_sum.hpp), so the value does not depend on how segments are
-// grouped. With a team of more than one rank (team.hpp), rank r evaluates only its contiguous
+// of the selected kernel rows (4096 rows, 8192 for the sparse kernel, more for very long data:
+// at most 4096 segments) and the segment sums are added order-free (order_free_sum.hpp), so the
+// value does not depend on how segments are grouped. With a team of more than one rank (team.hpp), rank r evaluates only its contiguous
 // share of the segments (Team::share) and the level sums are added over the ranks: every rank
 // gets the single-process result bit for bit, whatever the rank count. The total weight and
 // sample count are computed over all selected rows on every rank.
@@ -96,14 +96,15 @@ class LocalFields {
   Eigen::VectorXd spin_means() const;
 
   /// Weighted mean of z z^T with z = (s, 1): (N+1) x (N+1), the last row/column holding the
-  /// means of s. Summed over fixed row blocks in a fixed order (thread-count independent).
+  /// means of s. Summed per segment, order-free (independent of threads and ranks).
   Eigen::MatrixXd second_moments() const;
 
   int threads() const { return threads_; }
 
  private:
   // Level sums (order_free_sum.hpp) of units [i0, i0 + nc) over this rank's segments; rows of
-  // L0/L1/L2: loss, then (with the gradient) grad_h and the N gradient entries.
+  // L0/L1/L2: loss, then (with the gradient) grad_h and the N gradient entries; bound(k) bounds
+  // unit i0 + k's segment sums.
   void evaluate_chunk(LocalLoss loss, const Eigen::MatrixXd& theta, const Eigen::VectorXd& h,
                       bool gradient, std::int64_t i0, std::int64_t nc, const Eigen::VectorXd& bound,
                       Eigen::MatrixXd& L0, Eigen::MatrixXd& L1, Eigen::MatrixXd& L2) const;

@@ -13,6 +13,7 @@
 #include <thread>
 #include <vector>
 
+#include "../../lib/src/local_fields.hpp"  // SingleThreadedBlas
 #include "spinfer/team.hpp"
 
 namespace spinfer::testing {
@@ -97,6 +98,9 @@ class ThreadTeam final : public Team {
 /// Runs body(team) on `size` threads, one rank each, and returns each rank's result.
 template <typename Result>
 std::vector<Result> run_on_threads(int size, const std::function<Result(const Team&)>& body) {
+  // OpenBLAS at one thread for the whole run: each rank's own set-and-restore of the BLAS thread
+  // count would otherwise race with the others' and let concurrent GEMMs run threaded (unsafe).
+  detail::SingleThreadedBlas single;
   ThreadTeamHub hub(size);
   std::vector<Result> results(static_cast<std::size_t>(size));
   std::vector<std::thread> threads;
