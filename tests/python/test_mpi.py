@@ -115,6 +115,24 @@ def test_bad_input_on_three_ranks_ends_the_job_with_exit_65(mpi_cli, tmp_path):
     assert not out.exists()
 
 
+def test_an_error_on_one_rank_ends_every_rank(mpi_cli, recording, tmp_path):
+    # Rank 2 alone reads a bad file while ranks 0 and 1 start the fit and wait for it in the
+    # first collective: MPI_Abort must end them with rank 2's exit code instead of a hang.
+    bad = tmp_path / "bad.csv"
+    bad.write_text("a,b\n0,1\n1,3\n")
+    script = tmp_path / "one_bad_rank.sh"
+    script.write_text(
+        "#!/bin/sh\n"
+        'rank=${OMPI_COMM_WORLD_RANK:-${PMI_RANK:-${PMIX_RANK:-0}}}\n'
+        f'if [ "$rank" = 2 ]; then data="{bad}"; else data="{recording}"; fi\n'
+        f'exec "{mpi_cli}" fit "$data" --threads 1 --out "{tmp_path}/never.json"\n')
+    script.chmod(0o755)
+    r = run([script], mpi=True, timeout=120)
+    assert r.returncode == 65, r.stderr
+    assert "rank 2 of 3" in r.stderr and "not binary" in r.stderr
+    assert not (tmp_path / "never.json").exists()
+
+
 def test_commands_that_do_not_share_work_refuse_several_ranks(mpi_cli, tmp_path):
     r = run([mpi_cli, "stats", NEURONS / "true_model.json", "--out", tmp_path / "s.json"],
             mpi=True, timeout=120)

@@ -31,8 +31,9 @@ class Team {
   /// Elementwise sum over ranks of values[0 .. count), in place. Every rank receives the same
   /// bits: the sum is formed once on rank 0 and then broadcast (an all-reduce gives no such
   /// promise), so ranks feeding the sums to an optimiser take identical decisions. The order of
-  /// the additions is the MPI library's and fixed for a given rank count, so results agree with
-  /// a single process up to rounding only.
+  /// the additions is the MPI library's: sums of arbitrary doubles agree with a single process up
+  /// to rounding; callers that need the single-process bits add values whose sums are exact in
+  /// any order (the level sums of order-free sums, as the pseudo-likelihood engine does).
   virtual void sum(double* values, std::size_t count) const = 0;
 
   /// Every rank's bytes concatenated in rank order: on every rank when `all`, else on rank 0
