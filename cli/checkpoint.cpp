@@ -4,6 +4,8 @@
 #include <fstream>
 #include <iostream>
 #include <sstream>
+#include <cstdint>
+#include <vector>
 
 #include "signals.hpp"
 #include "spinfer/atomic_file.hpp"
@@ -60,6 +62,22 @@ CheckpointFile::CheckpointFile(const Context& ctx, const CheckpointArgs& args, s
 }
 
 std::optional<nlohmann::json> CheckpointFile::start() {
+  if (ctx_.ranks() == 1) return start_here();
+  // MPI: rank 0 alone checks and reads the file (another rank could take rank 0's first save for
+  // an existing checkpoint, or read a newer one) and hands the state to the others.
+  std::vector<std::uint8_t> bytes;
+  if (ctx_.root()) {
+    const std::optional<nlohmann::json> state = start_here();
+    const std::string text = state ? state->dump() : "";
+    bytes.push_back(state ? 1 : 0);
+    bytes.insert(bytes.end(), text.begin(), text.end());
+  }
+  ctx_.team->broadcast_bytes(bytes);
+  if (bytes.empty() || bytes[0] == 0) return std::nullopt;
+  return nlohmann::json::parse(bytes.begin() + 1, bytes.end());
+}
+
+std::optional<nlohmann::json> CheckpointFile::start_here() {
   const bool exists = std::filesystem::exists(path_);
   if (!args_.resume) {
     if (exists && !ctx_.common.force)
@@ -94,6 +112,7 @@ std::optional<nlohmann::json> CheckpointFile::start() {
 }
 
 void CheckpointFile::save(const nlohmann::json& state) {
+  if (!ctx_.root()) return;  // MPI: every rank holds the same state; rank 0 writes it
   const nlohmann::json file = {{"format", "spinfer-checkpoint"}, {"format_version", 1},
                                {"command", command_},           {"fingerprint", fingerprint_},
                                {"state", state}};
@@ -111,6 +130,7 @@ spinfer::CheckpointHooks CheckpointFile::hooks(std::optional<nlohmann::json> res
 }
 
 void CheckpointFile::remove() {
+  if (!ctx_.root()) return;
   std::error_code ec;
   std::filesystem::remove(path_, ec);
   if (ec) log_info(ctx_, "warning", "warning: cannot remove the checkpoint " + path_ + ": " + ec.message());

@@ -56,7 +56,8 @@ class CheckpointFile {
   /// after refusing (FileError) to replace an existing checkpoint unless --force.
   std::optional<nlohmann::json> start();
 
-  /// Writes `state` atomically.
+  /// Writes `state` atomically (rank 0 only in an MPI job; start() and remove() likewise act on
+  /// rank 0, which hands the resumed state to the other ranks).
   void save(const nlohmann::json& state);
 
   /// Hooks for the library: save() every --checkpoint-every seconds and on interruption;
@@ -68,6 +69,8 @@ class CheckpointFile {
   void remove();
 
  private:
+  std::optional<nlohmann::json> start_here();  // start() of this process alone
+
   const Context& ctx_;
   CheckpointArgs args_;
   std::string command_, path_;

@@ -2,6 +2,7 @@
 // exceptions to the documented exit codes. All numerical work happens in the library.
 // Built with -DSPINFER_MPI=ON and started by an MPI launcher, every rank runs this same main; an
 // error on any rank ends the whole job with the documented exit code (MPI_Abort).
+#include <csignal>
 #include <iostream>
 #include <string>
 
@@ -93,6 +94,10 @@ int run(int argc, char** argv, const spinfer::Team& team, const std::string& mpi
 int main(int argc, char** argv) {
 #ifdef SPINFER_WITH_MPI
   spinfer::cli::MpiSession mpi(&argc, &argv);  // first: MPI may remove its own arguments
+  // Only rank 0 acts on stop signals: it writes the checkpoint and exits with 128 + signal, and
+  // MPI_Abort then ends the others (a rank stopping on its own could end the job first).
+  if (!mpi.team().root())
+    for (int s : {SIGTERM, SIGINT, SIGUSR1}) std::signal(s, SIG_IGN);
   const int code = run(argc, argv, mpi.team(), "MPI: " + mpi.library_version() + "\n");
   return code == 0 ? 0 : mpi.abort(code);  // a failure on any rank ends every rank
 #else

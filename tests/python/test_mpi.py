@@ -9,7 +9,9 @@ an `mpirun` on PATH. Data: the invented demo recording data/neurons (data/README
 import json
 import os
 import shutil
+import signal
 import subprocess
+import time
 from pathlib import Path
 
 import numpy as np
@@ -131,6 +133,48 @@ def test_an_error_on_one_rank_ends_every_rank(mpi_cli, recording, tmp_path):
     assert r.returncode == 65, r.stderr
     assert "rank 2 of 3" in r.stderr and "not binary" in r.stderr
     assert not (tmp_path / "never.json").exists()
+
+
+def test_a_stopped_job_resumes_to_the_one_process_model(mpi_cli, tmp_path):
+    # SIGUSR1 to mpirun (which forwards it to every rank): rank 0 alone acts on it, writes the
+    # checkpoint and exits with 128 + 10; resuming on 3 ranks gives the uninterrupted model.
+    rng = np.random.default_rng(5)
+    z = rng.normal(size=(30000, 3))
+    X = (rng.normal(size=(30000, 40)) + z @ rng.normal(0, 0.7, (3, 40)) > 0.6).astype(np.uint8)
+    data = tmp_path / "x.npy"
+    np.save(data, X)
+    args = [mpi_cli, "fit", data, "--variant", "symmetric", "--l2", "1e-5", "--tolerance", "1e-10",
+            "--max-iterations", 5000, "--threads", 1]
+    reference, out = tmp_path / "reference.json", tmp_path / "model.json"
+    ckpt = tmp_path / "model.json.checkpoint"
+    r = run([*args, "--out", reference])
+    assert r.returncode == 0, r.stderr
+
+    def rounds():
+        try:
+            state = json.loads(ckpt.read_text())["state"]
+        except (FileNotFoundError, json.JSONDecodeError):
+            return -1
+        return state["optimiser"]["rounds"] if state.get("stage") == "final" else -1
+
+    p = subprocess.Popen(launcher() + [str(a) for a in args] + ["--out", str(out), "--checkpoint-every", "0"],
+                         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + TIMEOUT
+    while rounds() < 3:
+        assert p.poll() is None, "the job ended before its third round: " + p.stderr.read()
+        if time.monotonic() > deadline:
+            p.kill()
+            pytest.fail("no checkpoint of round 3")
+        time.sleep(0.005)
+    p.send_signal(signal.SIGUSR1)
+    _, err = p.communicate(timeout=TIMEOUT)
+    assert p.returncode == 128 + signal.SIGUSR1, err
+    assert "checkpoint written to" in err and not out.exists()
+    r = run([*args, "--out", out, "--resume"], mpi=True)
+    assert r.returncode == 0, r.stderr
+    a, b = load_model(reference), load_model(out)
+    assert np.array_equal(a[0], b[0]) and np.array_equal(a[1], b[1])
+    assert not ckpt.exists()
 
 
 def test_commands_that_do_not_share_work_refuse_several_ranks(mpi_cli, tmp_path):
