@@ -100,6 +100,7 @@ int run_fit(const Context& ctx, const FitArgs& a) {
     data = drop_constant_units(data, &dropped);
     if (!dropped.empty()) log_info(ctx, "dropped", "dropped " + dropped.describe(data));
   }
+  check_model_output(ctx, data.cols());  // the couplings file too, before the fit
   FitOptions o;
   o.method = a.method;
   o.symmetric = a.variant == "symmetric";
@@ -132,7 +133,7 @@ int run_fit(const Context& ctx, const FitArgs& a) {
   model.provenance.seed = ctx.common.seed;
   if (!ctx.root()) return kOk;  // every rank holds the same model; rank 0 writes it
   model.provenance.extra["command"] = provenance_json(ctx, {a.data});
-  save_model(ctx.common.out, model);
+  write_model_output(ctx, model);
   checkpoint.remove();
   const Provenance& p = model.provenance;
   log_info(ctx, "written", "model -> " + ctx.common.out + " (" + to_string(model.convention) +
@@ -183,6 +184,7 @@ void add_fit_command(CLI::App& app, Context& ctx) {
       ->check(CLI::PositiveNumber);
   add_common_options(*sub, ctx.common);
   add_checkpoint_options(*sub, args->checkpoint);
+  add_model_output_options(*sub, ctx.common);
   sub->footer(
       "Penalties are per sample (the objectives are averages over samples). Without --l2/--l1,\n"
       "pseudo-likelihood chooses l2 and screening chooses l1 on held-out data (the last 20% of\n"

@@ -35,6 +35,7 @@ int run_refine(const Context& ctx, const RefineArgs& a) {
                                               {"convention", a.convention}, {"member", a.member}}));
   std::optional<nlohmann::json> resume = checkpoint.start();
   const IsingModel start = load_model(a.model);
+  check_model_output(ctx, start.size());  // the couplings file too, before the refinement
   ReadOptions ro;
   if (!a.convention.empty()) ro.convention = parse_convention(a.convention);
   ro.member = a.member;
@@ -52,7 +53,7 @@ int run_refine(const Context& ctx, const RefineArgs& a) {
   o.checkpoint = checkpoint.hooks(std::move(resume));
   RefineResult r = refine_moments(data, start, o);
   r.model.provenance.extra["command"] = provenance_json(ctx, {a.model, a.data});
-  save_model(ctx.common.out, r.model);
+  write_model_output(ctx, r.model);
   checkpoint.remove();
   log_info(ctx, "refine", std::string(r.converged ? "converged" : "stopped (" + r.stop_reason + ")") +
                               " after " + std::to_string(r.iterations) + " iterations: normalised errors " +
@@ -88,6 +89,7 @@ void add_refine_command(CLI::App& app, Context& ctx) {
   sub->add_option("--max-seconds", args->max_seconds, "Wall-clock budget (0: none)")->check(CLI::NonNegativeNumber);
   add_checkpoint_options(*sub, args->checkpoint);
   add_common_options(*sub, ctx.common);
+  add_model_output_options(*sub, ctx.common);
   sub->footer(
       "Adjusts fields and couplings with Monte Carlo (or exact) gradients of the likelihood until the\n"
       "model's means and correlations match the data within sampling noise, or a budget runs out.\n"

@@ -12,8 +12,10 @@
 #include <nlohmann/json.hpp>
 
 #include "signals.hpp"
+#include "spinfer/checksum.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/fit.hpp"
+#include "spinfer/model_io.hpp"
 #include "spinfer/version.hpp"
 
 namespace spinfer::cli {
@@ -63,22 +65,7 @@ spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string&
   };
 }
 
-std::string file_checksum(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw FileError(path + ": cannot open file");
-  std::uint64_t h = 0xcbf29ce484222325ULL;
-  char buf[1 << 16];
-  while (in) {
-    in.read(buf, sizeof buf);
-    for (std::streamsize k = 0; k < in.gcount(); ++k) {
-      h ^= std::uint8_t(buf[k]);
-      h *= 0x100000001b3ULL;
-    }
-  }
-  char hex[17];
-  std::snprintf(hex, sizeof hex, "%016llx", static_cast<unsigned long long>(h));
-  return hex;
-}
+std::string file_checksum(const std::string& path) { return file_fnv1a64(path); }
 
 nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string>& inputs) {
   nlohmann::json files = nlohmann::json::array();
@@ -103,6 +90,28 @@ void check_output_path(const std::string& path, bool force) {
   if (path.empty()) return;
   if (!force && std::filesystem::exists(path))
     throw FileError(path + ": file exists (use --force to overwrite)");
+}
+
+void add_model_output_options(CLI::App& sub, Common& c) {
+  sub.add_option("--couplings-file", c.couplings_file,
+                 "Where the model's couplings go: auto (inline up to " +
+                     std::to_string(kInlineCouplingsMaxUnits) +
+                     " units, else a sibling OUT.couplings.npy), inline, npy")
+      ->check(CLI::IsMember({"auto", "inline", "npy"}));
+}
+
+void check_model_output(const Context& ctx, Eigen::Index units) {
+  check_output_path(ctx.common.out, ctx.common.force);
+  if (couplings_in_sibling(units, parse_couplings_storage(ctx.common.couplings_file, "--couplings-file")))
+    check_output_path(couplings_sibling_path(ctx.common.out), ctx.common.force);
+}
+
+void write_model_output(const Context& ctx, const IsingModel& model) {
+  check_model_output(ctx, model.size());
+  const CouplingsStorage storage = parse_couplings_storage(ctx.common.couplings_file, "--couplings-file");
+  save_model(ctx.common.out, model, storage);
+  if (couplings_in_sibling(model.size(), storage))
+    log_info(ctx, "written", "couplings -> " + couplings_sibling_path(ctx.common.out));
 }
 
 }  // namespace spinfer::cli

@@ -9,6 +9,7 @@
 #include <CLI/CLI.hpp>
 #include <nlohmann/json.hpp>
 
+#include "spinfer/model.hpp"
 #include "spinfer/progress.hpp"
 #include "spinfer/team.hpp"
 
@@ -33,6 +34,7 @@ struct Common {
   bool force = false;
   bool quiet = false;
   std::string log_format = "plain";  ///< plain | json
+  std::string couplings_file = "auto";  ///< auto | inline | npy (commands that write a model)
 };
 
 struct Context {
@@ -72,5 +74,17 @@ std::optional<double> parse_penalty(const std::string& text, const std::string& 
 
 /// Refuse to overwrite an existing output unless --force (throws spinfer::FileError).
 void check_output_path(const std::string& path, bool force);
+
+/// Adds --couplings-file to a subcommand that writes a model file (to --out).
+void add_model_output_options(CLI::App& sub, Common& c);
+
+/// Refuses (FileError) an existing --out, or an existing sibling couplings file when a model of
+/// `units` units would have one, unless --force. Call it as soon as the size is known, so a long
+/// fit does not end in a refusal.
+void check_model_output(const Context& ctx, Eigen::Index units);
+
+/// Writes the model to --out (and its sibling couplings file, as --couplings-file decides) after
+/// check_model_output, and logs where the couplings went.
+void write_model_output(const Context& ctx, const IsingModel& model);
 
 }  // namespace spinfer::cli

@@ -202,11 +202,15 @@ void bind_model(py::module_& m) {
       }, py::arg("moments"), py::arg("method"), py::arg("shrinkage") = 0.0,
       py::arg("max_condition") = 1e12, py::arg("mean_field_fallback") = false);
 
-  m.def("save_model", [](const std::string& path, const py::dict& d) {
+  m.def("save_model", [](const std::string& path, const py::dict& d, const std::string& couplings_file) {
         const IsingModel model = model_from_dict(d);
+        const CouplingsStorage storage = parse_couplings_storage(couplings_file, "couplings_file");
         py::gil_scoped_release release;
-        save_model(path, model);
-      }, py::arg("path"), py::arg("model"));
+        save_model(path, model, storage);
+      }, py::arg("path"), py::arg("model"), py::arg("couplings_file") = "auto");
+
+  m.def("couplings_sibling_path", &couplings_sibling_path, py::arg("model_path"));
+  m.attr("inline_couplings_max_units") = py::int_(kInlineCouplingsMaxUnits);
 
   m.def("load_model", [](const std::string& path) {
         IsingModel model;

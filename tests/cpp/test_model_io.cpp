@@ -128,8 +128,8 @@ TEST_CASE("model file: every schema violation names the file and the key") {
   j["format"] = "something-else";
   expect(j, "key 'format': expected \"spinfer-model\"");
   j = good;
-  j["format_version"] = 2;
-  expect(j, "key 'format_version': version 2 is not supported");
+  j["format_version"] = 3;
+  expect(j, "key 'format_version': version 3 is not supported");
   j = good;
   j["convention"] = "pm1";
   expect(j, "key 'convention': expected \"binary\" or \"spin\"");

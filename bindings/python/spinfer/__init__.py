@@ -31,6 +31,8 @@ from .models import (  # noqa: E402
     fit_closed_form,
     save_model,
     load_model,
+    couplings_sibling_path,
+    INLINE_COUPLINGS_MAX_UNITS,
 )
 from .io import MatrixFile, read_matrix, write_matrix, read_spikes, bin_spikes  # noqa: E402
 from .checking import check, check_table  # noqa: E402
@@ -95,6 +97,8 @@ __all__ = [
     "fit_closed_form",
     "save_model",
     "load_model",
+    "couplings_sibling_path",
+    "INLINE_COUPLINGS_MAX_UNITS",
     "MatrixFile",
     "read_matrix",
     "write_matrix",

@@ -367,10 +367,11 @@ class PairwiseNetwork(_Density, _Base):
         return type(m)(m.fields.copy(), m.couplings.copy(), m.convention,
                        None if m.names is None else list(m.names), dict(m.provenance))
 
-    def save(self, path) -> None:
-        """Write the fitted model to a JSON model file (:func:`spinfer.save_model`)."""
+    def save(self, path, couplings_file: str = "auto") -> None:
+        """Write the fitted model to a JSON model file (:func:`spinfer.save_model`; ``couplings_file``
+        is ``"auto"``, ``"inline"`` or ``"npy"``)."""
         self._fitted()
-        _save_model(path, self.model_)
+        _save_model(path, self.model_, couplings_file)
 
 
 __all__ = ["PairwiseNetwork"]

@@ -148,14 +148,34 @@ def fit_closed_form(data, method: str = "tap", shrinkage: float = 0.0, conventio
     return model
 
 
-def save_model(path, model: IsingModel) -> None:
-    """Write ``model`` to a JSON model file (schema: lib/include/spinfer/model_io.hpp), atomically."""
-    _core.save_model(os.fspath(path), model._to_core())
+def save_model(path, model: IsingModel, couplings_file: str = "auto") -> None:
+    """Write ``model`` to a JSON model file (schema: lib/include/spinfer/model_io.hpp), atomically.
+
+    ``couplings_file`` says where the couplings go: ``"inline"`` (N lists in the JSON), ``"npy"``
+    (a sibling ``NAME.couplings.npy`` beside ``NAME.json``, referenced from the JSON with its
+    shape and checksum; ``numpy.load`` reads it) or ``"auto"`` (inline up to
+    :data:`INLINE_COUPLINGS_MAX_UNITS` units, the sibling file above). Both files are written
+    together: a failure leaves neither new file. Existing files are replaced.
+    """
+    _core.save_model(os.fspath(path), model._to_core(), str(couplings_file))
 
 
 def load_model(path) -> IsingModel:
-    """Read and validate a model file."""
+    """Read and validate a model file (and its sibling couplings file, if it has one).
+
+    A couplings file that does not match the model file (another model's, or replaced since)
+    raises ``ValueError`` naming both files; a missing one raises ``OSError``.
+    """
     return IsingModel._from_core(_core.load_model(os.fspath(path)))
+
+
+def couplings_sibling_path(path) -> str:
+    """The couplings file that goes with a model file: ``DIR/NAME.json`` -> ``DIR/NAME.couplings.npy``."""
+    return _core.couplings_sibling_path(os.fspath(path))
+
+
+#: The largest model whose couplings ``couplings_file="auto"`` writes inline.
+INLINE_COUPLINGS_MAX_UNITS: int = int(_core.inline_couplings_max_units)
 
 
 __all__: Sequence[str] = [
@@ -169,4 +189,6 @@ __all__: Sequence[str] = [
     "fit_closed_form",
     "save_model",
     "load_model",
+    "couplings_sibling_path",
+    "INLINE_COUPLINGS_MAX_UNITS",
 ]

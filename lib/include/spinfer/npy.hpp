@@ -47,6 +47,11 @@ NpyArray parse_npy(const char* data, std::size_t size, const std::string& source
 /// Reads a .npy file. Missing/unreadable file: FileError; bad content: InputError.
 NpyArray read_npy(const std::string& path);
 
+/// Everything before the data in a .npy file (magic string, version, header length and the
+/// padded header) for an array of this descr, order and shape; the raw data follow it. InputError
+/// for an unsupported or big-endian descr or a negative dimension.
+std::string npy_preamble(const std::string& descr, bool fortran, const std::vector<std::int64_t>& shape);
+
 /// The complete .npy encoding (version 1.0, or 2.0 if the header needs it) of an array.
 std::string encode_npy(const NpyArray& array);
 
