@@ -100,7 +100,6 @@ int run_fit(const Context& ctx, const FitArgs& a) {
     data = drop_constant_units(data, &dropped);
     if (!dropped.empty()) log_info(ctx, "dropped", "dropped " + dropped.describe(data));
   }
-  check_model_output(ctx, data.cols());  // the couplings file too, before the fit
   FitOptions o;
   o.method = a.method;
   o.symmetric = a.variant == "symmetric";
@@ -126,6 +125,7 @@ int run_fit(const Context& ctx, const FitArgs& a) {
     checkpoint.remove();
     return rc;
   }
+  if (ctx.root()) check_model_output(ctx, data.cols());  // the couplings file too, before the fit
   log_info(ctx, "fit", "fitting " + std::to_string(data.rows()) + " samples x " +
                            std::to_string(data.cols()) + " units with " + a.method +
                            (ctx.ranks() > 1 ? " on " + std::to_string(ctx.ranks()) + " ranks" : ""));

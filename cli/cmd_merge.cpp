@@ -106,7 +106,7 @@ int run_merge(const Context& ctx, const MergeArgs& a) {
   p.extra["merged_from"] = {{"shards", count},
                             {"input", files.front().manifest["input"]},
                             {"fit_command", files.front().manifest.value("command", nlohmann::json())}};
-  save_model(ctx.common.out, model);
+  write_model_output(ctx, model);
   log_info(ctx, "written", "model -> " + ctx.common.out + " (" + std::to_string(count) +
                                " shards, " + std::to_string(model.size()) + " units, " +
                                (p.converged ? "converged" : "NOT converged") + ")");
@@ -127,6 +127,7 @@ void add_merge_command(CLI::App& app, Context& ctx) {
       ->required()
       ->check(CLI::ExistingFile);
   add_common_options(*sub, ctx.common);
+  add_model_output_options(*sub, ctx.common);
   sub->footer(
       "Every shard must come from the same input file (checksum) and settings, and shards 1..N\n"
       "must all be present exactly once; otherwise nothing is written (exit 65). The model equals\n"
