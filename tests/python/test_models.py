@@ -1,6 +1,6 @@
 """Closed-form fits, model class and model files through the Python package.
 
-Closed forms are compared with a direct numpy transcription of the published formulas
+Closed forms are compared with a direct numpy implementation of the published formulas
 (Kappen & Rodriguez 1998, Tanaka 1998, Roudi, Aurell & Hertz 2009, Sessak & Monasson 2009,
 Ricci-Tersenghi 2012 / Nguyen & Berg 2012),
 written here independently of the C++ code, on moments computed by numpy."""
