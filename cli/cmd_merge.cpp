@@ -25,33 +25,17 @@ nlohmann::json comparable(nlohmann::json m) {
   return m;
 }
 
-std::string first_difference(const nlohmann::json& a, const nlohmann::json& b,
-                             const std::string& prefix = "") {
-  if (a.is_object() && b.is_object()) {
-    for (auto it = a.begin(); it != a.end(); ++it) {
-      if (!b.contains(it.key())) return prefix + it.key();
-      const std::string d = first_difference(it.value(), b[it.key()], prefix + it.key() + ".");
-      if (!d.empty()) return d;
-    }
-    for (auto it = b.begin(); it != b.end(); ++it)
-      if (!a.contains(it.key())) return prefix + it.key();
-    return "";
-  }
-  return a == b ? "" : (prefix.empty() ? "(manifest)" : prefix.substr(0, prefix.size() - 1));
-}
-
-nlohmann::json value_at(const nlohmann::json& j, const std::string& dotted) {
-  const nlohmann::json* cur = &j;
-  std::size_t start = 0;
-  while (start <= dotted.size()) {
-    const std::size_t dot = dotted.find('.', start);
-    const std::string key = dotted.substr(start, dot == std::string::npos ? std::string::npos : dot - start);
-    if (!cur->is_object() || !cur->contains(key)) return nlohmann::json("(absent)");
-    cur = &(*cur)[key];
-    if (dot == std::string::npos) break;
-    start = dot + 1;
-  }
-  return *cur;
+// The first differing key of two manifests (JSON Patch path, RFC 6902, from nlohmann::json::diff)
+// as a dotted name with both values; empty when they agree.
+std::string describe_difference(const nlohmann::json& a, const nlohmann::json& b) {
+  const nlohmann::json patch = nlohmann::json::diff(a, b);
+  if (patch.empty()) return "";
+  const nlohmann::json::json_pointer at(patch[0]["path"].get<std::string>());
+  std::string dotted = at.to_string().substr(1);
+  for (char& c : dotted)
+    if (c == '/') c = '.';
+  auto value = [&](const nlohmann::json& j) { return j.contains(at) ? j[at].dump() : "(absent)"; };
+  return "manifest '" + dotted + "' differs: " + value(a) + " vs " + value(b);
 }
 
 int run_merge(const Context& ctx, const MergeArgs& a) {
@@ -69,11 +53,10 @@ int run_merge(const Context& ctx, const MergeArgs& a) {
   }
   for (std::size_t k = 0; k < files.size(); ++k) {
     const nlohmann::json& m = files[k].manifest;
-    const std::string diff = first_difference(reference, comparable(m));
+    const std::string diff = describe_difference(reference, comparable(m));
     if (!diff.empty())
       throw InputError(a.shards[k] + ": does not belong to the same fit as " + a.shards.front() +
-                       " (manifest '" + diff + "' differs: " + value_at(reference, diff).dump() +
-                       " vs " + value_at(comparable(m), diff).dump() + ")");
+                       " (" + diff + ")");
     const std::int64_t index = m.value("shard", std::int64_t(0));
     if (index < 1 || index > count)
       throw InputError(a.shards[k] + ": shard number " + std::to_string(index) + " is not in 1.." +

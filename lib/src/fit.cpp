@@ -1,5 +1,7 @@
 #include "spinfer/fit.hpp"
 
+#include "fit_options.hpp"
+
 #include "spinfer/closed_form.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/pseudo_likelihood.hpp"
@@ -7,26 +9,6 @@
 #include "spinfer/stats.hpp"
 
 namespace spinfer {
-
-namespace {
-
-// The settings pseudo-likelihood and screening share; unset penalties keep each method's default.
-template <typename Options>
-void copy_iterative_options(const FitOptions& o, Options& out) {
-  out.symmetric = o.symmetric;
-  if (o.l1) out.l1 = *o.l1;
-  if (o.l2) out.l2 = *o.l2;
-  out.max_iterations = o.max_iterations;
-  out.tolerance = o.tolerance;
-  out.threads = o.threads;
-  out.warm_start = o.warm_start;
-  out.progress = o.progress;
-  out.representation = o.representation;
-  out.checkpoint = o.checkpoint;
-  out.team = o.team;
-}
-
-}  // namespace
 
 std::vector<std::string> fit_methods() {
   std::vector<std::string> m = {"pseudo-likelihood", "screening"};
@@ -51,13 +33,13 @@ IsingModel fit_model(const SpinMatrix& data, const FitOptions& o) {
   if (o.method == "pseudo-likelihood") {
     known = true;
     PseudoLikelihoodOptions po;
-    copy_iterative_options(o, po);
+    detail::copy_iterative_options(o, po);
     model = fit_pseudo_likelihood(data, po);
   } else if (o.method == "screening") {
     known = true;
     ScreeningOptions so;
     so.logarithmic = o.logarithmic;
-    copy_iterative_options(o, so);
+    detail::copy_iterative_options(o, so);
     model = fit_screening(data, so);
   } else if (known && (o.l1.value_or(0) != 0 || o.l2.value_or(0) != 0)) {
     throw InputError("method '" + o.method + "' takes no penalty (--l1/--l2); use shrinkage instead");

@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <cmath>
 
+#include "fit_options.hpp"
 #include "local_fit.hpp"
 #include "lockstep_lbfgs.hpp"
 #include "spinfer/errors.hpp"
@@ -30,28 +31,12 @@ UnitFits fit_model_units(const SpinMatrix& data, const FitOptions& o,
   detail::LocalFitRequest req;
   if (o.method == "pseudo-likelihood") {
     PseudoLikelihoodOptions po;
-    if (o.l1) po.l1 = *o.l1;
-    if (o.l2) po.l2 = *o.l2;
-    po.max_iterations = o.max_iterations;
-    po.tolerance = o.tolerance;
-    po.threads = o.threads;
-    po.warm_start = o.warm_start;
-    po.progress = o.progress;
-    po.representation = o.representation;
-    po.checkpoint = o.checkpoint;
+    detail::copy_iterative_options(o, po);
     req = detail::pseudo_likelihood_request(po);
   } else if (o.method == "screening") {
     ScreeningOptions so;
     so.logarithmic = o.logarithmic;
-    if (o.l1) so.l1 = *o.l1;
-    if (o.l2) so.l2 = *o.l2;
-    so.max_iterations = o.max_iterations;
-    so.tolerance = o.tolerance;
-    so.threads = o.threads;
-    so.warm_start = o.warm_start;
-    so.progress = o.progress;
-    so.representation = o.representation;
-    so.checkpoint = o.checkpoint;
+    detail::copy_iterative_options(o, so);
     req = detail::screening_request(so);
   } else {
     throw InputError("shards: method '" + o.method + "' is computed at once; only per-variable "
