@@ -81,6 +81,12 @@ int run_fit_shard(const Context& ctx, const FitArgs& a, const SpinMatrix& data,
   return kOk;
 }
 
+// Whether MPI ranks split the per-variable problems (local_fit.hpp, LocalFitRequest::team).
+bool shares_units(const FitOptions& o, const SpinMatrix& data) {
+  return (o.method == "pseudo-likelihood" || o.method == "screening") && !o.symmetric &&
+         o.team && data.cols() >= o.team->size();
+}
+
 int run_fit(const Context& ctx, const FitArgs& a) {
   if (ctx.common.out.empty()) throw InputError("--out is required");
   if (ctx.root()) check_output_path(ctx.common.out, ctx.common.force);
@@ -117,7 +123,9 @@ int run_fit(const Context& ctx, const FitArgs& a) {
   if (!a.output_convention.empty()) o.convention = parse_convention(a.output_convention);
   o.progress = progress_logger(ctx, a.method);
   o.checkpoint = checkpoint.hooks(std::move(resume));
-  o.team = ctx.team;  // MPI ranks share the samples (every rank reads the whole file)
+  // MPI: every rank reads the whole file; the ranks share out the samples (symmetric objective,
+  // held-out penalty choice, shards) or the units (per-variable final fit).
+  o.team = ctx.team;
   if (!a.shard.empty() && a.shard_from_slurm)
     throw InputError("--shard and --shard-from-slurm exclude each other");
   if (!a.shard.empty() || a.shard_from_slurm) {
@@ -128,7 +136,11 @@ int run_fit(const Context& ctx, const FitArgs& a) {
   if (ctx.root()) check_model_output(ctx, data.cols());  // the couplings file too, before the fit
   log_info(ctx, "fit", "fitting " + std::to_string(data.rows()) + " samples x " +
                            std::to_string(data.cols()) + " units with " + a.method +
-                           (ctx.ranks() > 1 ? " on " + std::to_string(ctx.ranks()) + " ranks" : ""));
+                           (ctx.ranks() > 1 ? " on " + std::to_string(ctx.ranks()) + " ranks" +
+                                                  (shares_units(o, data) ? " (units shared out)"
+                                                   : o.method == "pseudo-likelihood" || o.method == "screening"
+                                                       ? " (samples shared out)" : " (each computes all)")
+                                            : ""));
   IsingModel model = fit_model(data, o);
   model.provenance.seed = ctx.common.seed;
   if (!ctx.root()) return kOk;  // every rank holds the same model; rank 0 writes it

@@ -16,6 +16,9 @@
 
 namespace {
 
+// run()'s answer on a rank other than 0 that rank 0 has stopped (MPI builds only).
+constexpr int kAwaitRootAbort = -1;
+
 // "spinfer: " alone, or naming the rank in a job of several.
 std::string prefix(const spinfer::cli::Context& ctx) {
   if (ctx.ranks() == 1) return "spinfer: ";
@@ -82,6 +85,9 @@ int run(int argc, char** argv, const spinfer::Team& team, const std::string& mpi
     std::cerr << prefix(ctx) << "numerical failure: " << e.what() << std::endl;
     return kNumerical;
   } catch (const spinfer::Interrupted& e) {
+    // MPI: rank 0 stopped the job and writes the checkpoint; it must end the job (an exit code
+    // of another rank could reach the launcher first).
+    if (!ctx.root()) return kAwaitRootAbort;
     return exit_after_interruption(e.what());  // 128 + signal
   } catch (const std::exception& e) {
     std::cerr << prefix(ctx) << "internal error: " << e.what() << std::endl;
@@ -99,9 +105,11 @@ int main(int argc, char** argv) {
   if (!mpi.team().root())
     for (int s : {SIGTERM, SIGINT, SIGUSR1}) std::signal(s, SIG_IGN);
   const int code = run(argc, argv, mpi.team(), "MPI: " + mpi.library_version() + "\n");
+  if (code == kAwaitRootAbort) return mpi.await_root_abort();
   return code == 0 ? 0 : mpi.abort(code);  // a failure on any rank ends every rank
 #else
   static const spinfer::SoloTeam solo;
-  return run(argc, argv, solo, "MPI: not built in (configure with -DSPINFER_MPI=ON)\n");
+  const int code = run(argc, argv, solo, "MPI: not built in (configure with -DSPINFER_MPI=ON)\n");
+  return code == kAwaitRootAbort ? spinfer::cli::kFailure : code;  // cannot happen on rank 0
 #endif
 }

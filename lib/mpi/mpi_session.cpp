@@ -126,6 +126,11 @@ int MpiSession::abort(int code) const {
   return code;
 }
 
+int MpiSession::await_root_abort() const {
+  if (started_ && team_->size() > 1) MPI_Barrier(MPI_COMM_WORLD);
+  return abort(1);
+}
+
 std::string MpiSession::library_version() {
   char text[MPI_MAX_LIBRARY_VERSION_STRING] = {};
   int length = 0;

@@ -32,6 +32,10 @@ class MpiSession {
   /// not started (the caller then exits with it as usual).
   int abort(int code) const;
 
+  /// For a rank that rank 0 has stopped: waits (in a barrier rank 0 never enters) until rank 0's
+  /// MPI_Abort ends the job with rank 0's exit code; aborts with 1 should the barrier return.
+  int await_root_abort() const;
+
   /// The MPI library's own version line (callable without starting MPI).
   static std::string library_version();
 

@@ -1,6 +1,7 @@
 #include "local_fit.hpp"
 
 #include "lockstep_lbfgs.hpp"
+#include "rank_rounds.hpp"
 
 #include <algorithm>
 #include <chrono>
@@ -295,7 +296,8 @@ std::vector<Index> all_units(Index N) {
 
 LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& s,
                          const LocalFitResult* start, const std::vector<std::int64_t>* units,
-                         const nlohmann::json* resume, const LocalSaveState& save_state) {
+                         const nlohmann::json* resume, const LocalSaveState& save_state,
+                         const Team* unit_team) {
   const Index N = fields.units();
   if (!(s.l1 >= 0) || !(s.l2 >= 0) || !std::isfinite(s.l1) || !std::isfinite(s.l2))
     throw InputError(s.stage + ": penalties must be finite and >= 0 (got l1 = " +
@@ -308,6 +310,8 @@ LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& s,
   if (s.symmetric && units && Index(fitted.size()) != N)
     throw InputError(s.stage + ": the symmetric objective couples all units; it cannot be fitted "
                      "for a subset of units (use the per-variable objective for shards)");
+  if (unit_team && (s.symmetric || fitted.empty()))
+    throw std::logic_error("fit_local: a unit team needs a per-variable fit of at least one unit");
 
   Objectives objectives(fields, s, fitted);
   LockstepSettings ls;
@@ -320,7 +324,9 @@ LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& s,
     objectives.evaluate(which, x, f, g, r);
   };
   if (resume) {
-    minimiser.from_json(*resume);
+    // A team's rank holds a contiguous share of all units; its part of the all-units state.
+    minimiser.from_json(unit_team ? slice_unit_states(*resume, fitted.front(), fitted.back() + 1, N)
+                                  : *resume);
   } else {
     VectorXd h0;
     MatrixXd theta0;
@@ -364,7 +370,49 @@ LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& s,
     }
     return true;
   };
-  minimiser.run(evaluate, after_round);
+  // Units spread over ranks (rank_rounds.hpp): after every round all ranks meet; rank 0 reports
+  // the all-units objective, decides stops and saves, and writes the gathered state.
+  bool others_running = true;  // until a meeting says otherwise
+  std::int64_t rounds_met = 0;
+  auto meet = [&](bool running, double objective) {
+    ++rounds_met;
+    const RankTurn turn = meet_after_round(*unit_team, running, objective, [&](double total) {
+      const auto now = std::chrono::steady_clock::now();
+      bool stop = false;
+      if (s.progress) {
+        Progress p;
+        p.stage = s.stage;
+        p.done = rounds_met;
+        p.total = s.max_iterations;
+        p.objective = total;
+        p.elapsed_s = std::chrono::duration<double>(now - t0).count();
+        stop = !s.progress(p);
+      }
+      const bool save = save_state && std::chrono::duration<double>(now - last_save).count() >= s.checkpoint_every_s;
+      return std::make_pair(stop, save);
+    });
+    others_running = turn.anyone_running;
+    if (turn.save && save_state) {
+      const nlohmann::json all = gather_unit_states(*unit_team, minimiser.to_json());
+      if (unit_team->root()) save_state(all);
+      last_save = std::chrono::steady_clock::now();
+    }
+    if (turn.stop) interrupted = true;
+    return !turn.stop;
+  };
+  if (unit_team) {
+    minimiser.run(evaluate, [&](std::int64_t, double objective) {
+      bool running = false;
+      for (const LockstepState& st : minimiser.states()) running |= st.status == LockstepStatus::running;
+      return meet(running, objective);
+    });
+    while (!interrupted && others_running) meet(false, minimiser.objective_sum());
+    if (interrupted)  // the state went to rank 0's checkpoint at the meeting that stopped
+      throw Interrupted(s.stage + (unit_team->root() ? ": interrupted by the progress callback"
+                                                     : ": stopped by rank 0"));
+  } else {
+    minimiser.run(evaluate, after_round);
+  }
   if (interrupted) {
     if (save_state) save_state(minimiser.to_json());
     throw Interrupted(s.stage + ": interrupted by the progress callback");
@@ -561,7 +609,8 @@ FinalFit prepare_final_fit(const SpinMatrix& data, const LocalFitRequest& req,
 }
 
 LocalFitResult run_final_fit(const FinalFit& ff, const LocalFitRequest& req,
-                             const LocalFields& all, const std::vector<std::int64_t>* units) {
+                             const LocalFields& all, const std::vector<std::int64_t>* units,
+                             const Team* unit_team = nullptr) {
   LocalSaveState save;
   if (req.checkpoint.save) {
     const LocalFitSettings& s = ff.settings;
@@ -574,7 +623,7 @@ LocalFitResult run_final_fit(const FinalFit& ff, const LocalFitRequest& req,
     };
   }
   return fit_local(all, ff.settings, ff.has_start ? &ff.start : nullptr, units,
-                   ff.resume_optimiser ? &*ff.resume_optimiser : nullptr, save);
+                   ff.resume_optimiser ? &*ff.resume_optimiser : nullptr, save, unit_team);
 }
 
 Provenance make_provenance(const SpinMatrix& data, const LocalFitRequest& req, const FinalFit& ff,
@@ -599,21 +648,9 @@ Provenance make_provenance(const SpinMatrix& data, const LocalFitRequest& req, c
   return p;
 }
 
-}  // namespace
-
-UnitFits fit_local_units(const SpinMatrix& data, const LocalFitRequest& req,
-                         const std::vector<std::int64_t>& units) {
-  if (req.settings.symmetric)
-    throw InputError(req.settings.stage + ": the symmetric objective couples all units and "
-                     "cannot be split into shards; use the per-variable objective");
-  for (std::size_t k = 0; k < units.size(); ++k)
-    if (units[k] < 0 || units[k] >= data.cols() || (k > 0 && units[k] <= units[k - 1]))
-      throw InputError(req.settings.stage + ": the units to fit must be distinct, ascending and "
-                       "within 0.." + std::to_string(data.cols() - 1));
-  PreparedData prepared(data, req.representation, req.threads);
-  const FinalFit ff = prepare_final_fit(data, req, prepared);
-  LocalFields all(prepared, req.threads, req.team);
-  const LocalFitResult r = run_final_fit(ff, req, all, &units);
+UnitFits unit_fits_of(const SpinMatrix& data, const LocalFitRequest& req, const FinalFit& ff,
+                      const PreparedData& prepared, const LocalFitResult& r,
+                      const std::vector<std::int64_t>& units) {
   UnitFits out;
   out.total_units = data.cols();
   out.names = data.names();
@@ -632,8 +669,60 @@ UnitFits fit_local_units(const SpinMatrix& data, const LocalFitRequest& req,
   return out;
 }
 
+}  // namespace
+
+UnitFits fit_local_units(const SpinMatrix& data, const LocalFitRequest& req,
+                         const std::vector<std::int64_t>& units) {
+  if (req.settings.symmetric)
+    throw InputError(req.settings.stage + ": the symmetric objective couples all units and "
+                     "cannot be split into shards; use the per-variable objective");
+  for (std::size_t k = 0; k < units.size(); ++k)
+    if (units[k] < 0 || units[k] >= data.cols() || (k > 0 && units[k] <= units[k - 1]))
+      throw InputError(req.settings.stage + ": the units to fit must be distinct, ascending and "
+                       "within 0.." + std::to_string(data.cols() - 1));
+  PreparedData prepared(data, req.representation, req.threads);
+  const FinalFit ff = prepare_final_fit(data, req, prepared);
+  LocalFields all(prepared, req.threads, req.team);
+  const LocalFitResult r = run_final_fit(ff, req, all, &units);
+  return unit_fits_of(data, req, ff, prepared, r, units);
+}
+
+namespace {
+
+// Per-variable fit with the units shared out over the ranks of req.team (rank_rounds.hpp): the
+// penalty choice shares rows as before; then each rank fits its units on all rows, and the
+// ranks' columns are gathered to every rank and put together as a one-process fit would.
+IsingModel fit_units_on_team(const SpinMatrix& data, const LocalFitRequest& req) {
+  const Team& team = *req.team;
+  PreparedData prepared(data, req.representation, req.threads);
+  const FinalFit ff = prepare_final_fit(data, req, prepared);
+  LocalFields mine(prepared, req.threads, nullptr);  // this rank alone, all rows
+  const auto [begin, end] = team.my_share(data.cols());
+  std::vector<std::int64_t> units;
+  for (std::int64_t i = begin; i < end; ++i) units.push_back(i);
+  const LocalFitResult r = run_final_fit(ff, req, mine, &units, &team);
+  const std::string text = unit_fits_to_json(unit_fits_of(data, req, ff, prepared, r, units)).dump() + "\n";
+  const std::vector<std::uint8_t> bytes = team.all_gather(std::vector<std::uint8_t>(text.begin(), text.end()));
+  std::vector<UnitFits> parts;
+  std::size_t from = 0;
+  for (std::size_t k = 0; k < bytes.size(); ++k) {
+    if (bytes[k] != '\n') continue;
+    parts.push_back(unit_fits_from_json(
+        nlohmann::json::parse(bytes.begin() + std::ptrdiff_t(from), bytes.begin() + std::ptrdiff_t(k)),
+        "rank " + std::to_string(parts.size())));
+    from = k + 1;
+  }
+  IsingModel m = assemble_unit_fits(parts, Convention::spin);
+  m.provenance.extra.erase("parts");
+  m.provenance.extra["unit_ranks"] = team.size();
+  return m;
+}
+
+}  // namespace
+
 IsingModel fit_local_model(const SpinMatrix& data, const LocalFitRequest& req) {
   if (!req.settings.symmetric) {
+    if (shared_work(req.team) && data.cols() >= req.team->size()) return fit_units_on_team(data, req);
     std::vector<std::int64_t> units(static_cast<std::size_t>(data.cols()));
     for (std::int64_t i = 0; i < data.cols(); ++i) units[std::size_t(i)] = i;
     return assemble_unit_fits({fit_local_units(data, req, units)}, Convention::spin);

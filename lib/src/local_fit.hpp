@@ -57,11 +57,17 @@ using LocalSaveState = std::function<void(const nlohmann::json& optimiser_state)
 /// exactly those of the full fit. `resume` continues from a state given to `save_state` (which
 /// is called every settings.checkpoint_every_s and when interrupted). Throws Interrupted,
 /// NumericalError (non-finite objective at the start), InputError (bad settings or state).
+/// `unit_team` (per-variable only): the ranks that each fit their own contiguous, non-empty
+/// share of all units on all rows (`fields` then belongs to this rank alone); the ranks meet
+/// after every round (rank_rounds.hpp), `resume` is then a state of all units, and `save_state`
+/// is called on rank 0 only, with the state of all units. `save_state` must be set on every
+/// rank or on none. Non-root ranks throw Interrupted when rank 0 stops the fit.
 LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& settings,
                          const LocalFitResult* start,
                          const std::vector<std::int64_t>* units = nullptr,
                          const nlohmann::json* resume = nullptr,
-                         const LocalSaveState& save_state = nullptr);
+                         const LocalSaveState& save_state = nullptr,
+                         const Team* unit_team = nullptr);
 
 /// Mean per-sample pseudo-log-likelihood of (h, J) on the selected rows.
 double mean_pseudo_log_likelihood(const LocalFields& fields, const Eigen::VectorXd& h,
@@ -73,7 +79,11 @@ struct LocalFitRequest {
   LocalFitSettings settings;  ///< l1/l2 may be automatic_penalty here
   int threads = 0;
   std::string representation = "auto";
-  const Team* team = nullptr;  ///< shares the rows out over ranks (local_fields.hpp); may be null
+  /// MPI ranks (may be null). The symmetric objective and the held-out penalty choice share the
+  /// rows out over them (local_fields.hpp); the per-variable final fit shares the units out
+  /// (each rank fits its units on all rows; rank_rounds.hpp) when there are at least as many
+  /// units as ranks.
+  const Team* team = nullptr;
   std::optional<IsingModel> warm_start;
   std::string method;
   nlohmann::json extra = nlohmann::json::object();

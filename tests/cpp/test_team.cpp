@@ -5,10 +5,12 @@
 // must samples (chain c draws from stream c wherever it runs).
 #include <doctest/doctest.h>
 
+#include <optional>
 #include <random>
 #include <string>
 
 #include "../../lib/src/local_fields.hpp"
+#include "spinfer/errors.hpp"
 #include "spinfer/fit.hpp"
 #include "spinfer/sampler.hpp"
 #include "spinfer/team.hpp"
@@ -195,6 +197,71 @@ TEST_CASE("team: pseudo-likelihood and screening on 3 ranks equal the single-pro
       CHECK(m.provenance.iterations == plain.provenance.iterations);
       CHECK(m.provenance.l2 == plain.provenance.l2);
     }
+  }
+}
+
+TEST_CASE("team: a per-variable fit stopped on 3 ranks resumes on any rank count to the same model") {
+  // Units shared out over ranks (lib/src/rank_rounds.hpp): rank 0 stops every rank at a round
+  // boundary and saves the optimiser state of all units in the one-process layout.
+  detail::SingleThreadedBlas one_blas_thread;  // as the thread ranks (see above)
+  const IsingModel truth = random_model(13, 21, 0.25);  // 13 units: shares of 4, 4, 5
+  const SpinMatrix data = sampled_data(truth, 6000, 4);
+  FitOptions o;
+  o.l2 = 1e-4;
+  o.tolerance = 1e-9;
+  o.threads = 1;
+  const IsingModel plain = fit_model(data, o);
+  REQUIRE(plain.provenance.iterations > 6);
+
+  std::optional<nlohmann::json> saved;
+  const auto stopped = run_on_threads<int>(3, [&](const Team& t) {
+    FitOptions mine = o;
+    mine.team = &t;
+    mine.checkpoint.every_seconds = 1e9;  // only the save that comes with the stop
+    mine.checkpoint.save = [&](const nlohmann::json& state) {
+      CHECK(t.root());  // only rank 0 receives the gathered state
+      saved = nlohmann::json::parse(state.dump());
+    };
+    mine.progress = [&](const Progress& p) { return !t.root() || p.done < 4; };  // rank 0 stops
+    try {
+      fit_model(data, mine);
+    } catch (const Interrupted&) {
+      return 1;
+    }
+    return 0;
+  });
+  for (int r : stopped) CHECK(r == 1);  // every rank stopped, not only rank 0
+  REQUIRE(saved.has_value());
+  const auto& optimiser = saved->at("optimiser");
+  CHECK(optimiser.at("problems").size() == 13);
+  CHECK(optimiser.at("rounds") == 4);
+
+  FitOptions resume = o;
+  resume.checkpoint.resume = *saved;
+  CHECK(max_difference(fit_model(data, resume), plain) == 0.0);  // one process
+  for (int ranks : {2, 3, 13}) {
+    const auto resumed = run_on_threads<IsingModel>(ranks, [&](const Team& t) {
+      FitOptions mine = resume;
+      mine.team = &t;
+      return fit_model(data, mine);
+    });
+    for (const IsingModel& m : resumed) {
+      INFO(ranks << " ranks");
+      CHECK(max_difference(m, plain) == 0.0);
+      CHECK(m.provenance.extra.at("unit_ranks") == ranks);
+      CHECK(m.provenance.extra.at("evaluations") == plain.provenance.extra.at("evaluations"));
+    }
+  }
+  // More ranks than units: the samples are shared out instead (still the same model).
+  const SpinMatrix two = data.select_columns({0, 1});
+  const IsingModel plain_two = fit_model(two, o);
+  for (const IsingModel& m : run_on_threads<IsingModel>(3, [&](const Team& t) {
+         FitOptions mine = o;
+         mine.team = &t;
+         return fit_model(two, mine);
+       })) {
+    CHECK(max_difference(m, plain_two) == 0.0);
+    CHECK_FALSE(m.provenance.extra.contains("unit_ranks"));
   }
 }
 

@@ -85,6 +85,10 @@ def test_fit_on_three_ranks_equals_one_process(mpi_cli, recording, tmp_path, var
     assert m1["provenance"]["l2"] == pytest.approx(m0["provenance"]["l2"], rel=1e-12)
     assert m1["provenance"]["extra"]["command"]["ranks"] == RANKS
     assert m0["provenance"]["extra"]["command"]["ranks"] == 1
+    if variant == "per-variable":  # the units (rows of J) were shared out, not the samples
+        assert m1["provenance"]["extra"]["unit_ranks"] == RANKS
+        assert "unit_ranks" not in m0["provenance"]["extra"]
+        assert m1["provenance"]["extra"]["evaluations"] == m0["provenance"]["extra"]["evaluations"]
 
 
 def test_sample_on_three_ranks_equals_one_process(mpi_cli, tmp_path):
@@ -135,15 +139,17 @@ def test_an_error_on_one_rank_ends_every_rank(mpi_cli, recording, tmp_path):
     assert not (tmp_path / "never.json").exists()
 
 
-def test_a_stopped_job_resumes_to_the_one_process_model(mpi_cli, tmp_path):
+@pytest.mark.parametrize("variant", ["symmetric", "per-variable"])
+def test_a_stopped_job_resumes_to_the_one_process_model(mpi_cli, tmp_path, variant):
     # SIGUSR1 to mpirun (which forwards it to every rank): rank 0 alone acts on it, writes the
     # checkpoint and exits with 128 + 10; resuming on 3 ranks gives the uninterrupted model.
+    # Per-variable: every rank fits its own units, and the checkpoint gathers all of them.
     rng = np.random.default_rng(5)
     z = rng.normal(size=(30000, 3))
     X = (rng.normal(size=(30000, 40)) + z @ rng.normal(0, 0.7, (3, 40)) > 0.6).astype(np.uint8)
     data = tmp_path / "x.npy"
     np.save(data, X)
-    args = [mpi_cli, "fit", data, "--variant", "symmetric", "--l2", "1e-5", "--tolerance", "1e-10",
+    args = [mpi_cli, "fit", data, "--variant", variant, "--l2", "1e-5", "--tolerance", "1e-10",
             "--max-iterations", 5000, "--threads", 1]
     reference, out = tmp_path / "reference.json", tmp_path / "model.json"
     ckpt = tmp_path / "model.json.checkpoint"
@@ -170,11 +176,20 @@ def test_a_stopped_job_resumes_to_the_one_process_model(mpi_cli, tmp_path):
     _, err = p.communicate(timeout=TIMEOUT)
     assert p.returncode == 128 + signal.SIGUSR1, err
     assert "checkpoint written to" in err and not out.exists()
+    saved = ckpt.read_bytes()
     r = run([*args, "--out", out, "--resume"], mpi=True)
     assert r.returncode == 0, r.stderr
     a, b = load_model(reference), load_model(out)
     assert np.array_equal(a[0], b[0]) and np.array_equal(a[1], b[1])
     assert not ckpt.exists()
+    if variant == "per-variable":
+        # The gathered state has the one-process layout: the same checkpoint resumes without MPI.
+        alone, alone_ckpt = tmp_path / "alone.json", tmp_path / "alone.json.checkpoint"
+        alone_ckpt.write_bytes(saved)
+        r = run([*args, "--out", alone, "--resume"])
+        assert r.returncode == 0, r.stderr
+        c = load_model(alone)
+        assert np.array_equal(a[0], c[0]) and np.array_equal(a[1], c[1])
 
 
 def test_commands_that_do_not_share_work_refuse_several_ranks(mpi_cli, tmp_path):

@@ -40,7 +40,8 @@ struct FitOptions {
   /// pseudo-likelihood / screening: periodic and on-interrupt optimiser state, and resuming
   /// from it (bit-identical to an uninterrupted fit). Closed forms ignore it.
   CheckpointHooks checkpoint;
-  /// Pseudo-likelihood and screening: ranks sharing the samples (PseudoLikelihoodOptions::team).
+  /// Pseudo-likelihood and screening: ranks sharing the samples or, per-variable, the units
+  /// (PseudoLikelihoodOptions::team).
   /// The closed forms ignore it (every rank computes the same moments).
   const Team* team = nullptr;
 };

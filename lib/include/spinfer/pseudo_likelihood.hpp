@@ -55,9 +55,13 @@ struct PseudoLikelihoodOptions {
   /// 40 % or more, and the sparse kernel below 10 % activity. Reported in provenance.extra.
   std::string representation = "auto";
   CheckpointHooks checkpoint;            ///< save / resume the optimiser state (checkpoint.hpp)
-  /// Ranks sharing the samples (team.hpp): each takes a contiguous share of the rows and the
-  /// per-iteration sums are added over ranks, so every rank returns the single-process result bit
-  /// for bit (local_fields.hpp). Null: this process alone. Every rank must make the same call.
+  /// Ranks sharing the work (team.hpp); null: this process alone. Every rank must make the same
+  /// call and returns the single-process model bit for bit. The symmetric objective and the
+  /// held-out penalty choice share the samples (each rank takes a contiguous share of the rows;
+  /// the per-iteration sums are added over ranks, local_fields.hpp). The per-variable fit shares
+  /// the units (rows of J): each rank fits a contiguous share of the N problems on all samples,
+  /// and the columns are gathered to every rank (needs N >= ranks; else the samples are shared).
+  /// Checkpoint states have the one-process layout: any rank count resumes them.
   const Team* team = nullptr;
 };
 

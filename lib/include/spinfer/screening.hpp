@@ -35,7 +35,7 @@ struct ScreeningOptions {
   ProgressCallback progress;
   std::string representation = "auto";
   CheckpointHooks checkpoint;            ///< save / resume the optimiser state (checkpoint.hpp)
-  const Team* team = nullptr;            ///< ranks sharing the samples (as PseudoLikelihoodOptions)
+  const Team* team = nullptr;            ///< ranks sharing the work (as PseudoLikelihoodOptions)
 };
 
 /// Fits by interaction screening. Provenance: method "screening", extra {"variant": "rise" |
