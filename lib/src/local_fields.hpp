@@ -108,6 +108,8 @@ class LocalFields {
   void evaluate_chunk(LocalLoss loss, const Eigen::MatrixXd& theta, const Eigen::VectorXd& h,
                       bool gradient, std::int64_t i0, std::int64_t nc, const Eigen::VectorXd& bound,
                       Eigen::MatrixXd& L0, Eigen::MatrixXd& L1, Eigen::MatrixXd& L2) const;
+  // The segment's sum of w z z^T from the active lists (sparse kernel only).
+  void sparse_second_moments(std::int64_t segment, Eigen::MatrixXd& M) const;
   double weight(std::int64_t r) const { return weights_.empty() ? 1.0 : weights_[std::size_t(r)]; }
   std::int64_t segments() const { return std::int64_t(segment_start_.size()) - 1; }
   template <typename Fn>

@@ -38,10 +38,12 @@ class Objectives {
     theta_.setZero(N_, N_);
     h_.setZero(N_);
     factors_.resize(std::size_t(N_));
-    if (!s.symmetric && s.l1 == 0 && s.loss == LocalLoss::pseudo_likelihood &&
-        N_ <= kWhitenMaxUnits)
+    const bool smooth = !s.symmetric && s.l1 == 0;
+    if (smooth && s.loss == LocalLoss::pseudo_likelihood && N_ <= kWhitenMaxUnits)
       build_whitening();
-    else if (!s.symmetric && s.l1 == 0)
+    else if (smooth && s.loss == LocalLoss::pseudo_likelihood && build_shared_whitening())
+      ;
+    else if (smooth)
       build_centring();
   }
 
@@ -51,7 +53,8 @@ class Objectives {
       return {LockstepProblem{pairs + N_, pairs, 2.0 * s_.l1}};  // each pair's penalty twice
     }
     std::vector<LockstepProblem> out;
-    for (std::size_t k = 0; k < units_.size(); ++k) out.push_back({N_, N_ - 1, s_.l1});
+    const Index dimension = shared_ ? N_ + 1 : N_;  // shared whitening: v has N + 1 entries
+    for (std::size_t k = 0; k < units_.size(); ++k) out.push_back({dimension, N_ - 1, s_.l1});
     return out;
   }
 
@@ -67,6 +70,7 @@ class Objectives {
       return {x};
     }
     std::vector<VectorXd> xs(units_.size());
+    SingleThreadedBlas single;
     parallel_for(Index(units_.size()), f_.threads(), [&](Index k) {
       const Index i = units_[std::size_t(k)];
       VectorXd p(N_);
@@ -74,6 +78,7 @@ class Objectives {
       p(N_ - 1) = h(i);
       const MatrixXd& L = factors_[std::size_t(i)];
       if (L.size()) p = L.triangularView<Eigen::Lower>().transpose() * p;
+      else if (shared_) p = to_shared(i, p);
       else if (centred_) to_centred(i, p);
       xs[std::size_t(k)] = std::move(p);
     });
@@ -95,6 +100,7 @@ class Objectives {
     const MatrixXd& L = factors_[std::size_t(i)];
     VectorXd p = x;
     if (L.size()) L.triangularView<Eigen::Lower>().transpose().solveInPlace(p);  // p = L^-T v
+    else if (shared_) throw std::logic_error("Objectives: shared whitening unpacks in chunks");
     else if (centred_) from_centred(i, p);
     for (Index a = 0; a < N_ - 1; ++a) theta_(a < i ? a : a + 1, i) = p(a);
     theta_(i, i) = 0.0;
@@ -109,23 +115,40 @@ class Objectives {
       evaluate_symmetric(x[0], f[0], g[0], residual[0]);
       return;
     }
+    SingleThreadedBlas single;  // the per-unit solves run on our threads
     std::vector<char> wanted(std::size_t(N_), 0);
     for (std::int64_t k : which) wanted[std::size_t(units_[std::size_t(k)])] = 1;
-    parallel_for(Index(which.size()), f_.threads(), [&](Index w) {
-      const std::int64_t k = which[std::size_t(w)];
-      unpack(k, x[std::size_t(k)]);
-    });
+    if (shared_) {
+      shared_unpack(which, x);
+    } else {
+      parallel_for(Index(which.size()), f_.threads(), [&](Index w) {
+        const std::int64_t k = which[std::size_t(w)];
+        unpack(k, x[std::size_t(k)]);
+      });
+    }
     f_.evaluate(s_.loss, theta_, h_, true, loss_, grad_, grad_h_, &wanted);
     parallel_for(Index(which.size()), f_.threads(), [&](Index w) {
       const std::int64_t k = which[std::size_t(w)];
       evaluate_unit(k, x[std::size_t(k)], f[std::size_t(k)], g[std::size_t(k)],
                     residual[std::size_t(k)]);
     });
+    if (shared_) shared_gradients(which, g);
   }
 
   // (h, Theta) of the problems' current points (fitted units only for per-variable).
   void solution(const std::vector<LockstepState>& states, VectorXd& h, MatrixXd& theta) {
-    for (std::size_t k = 0; k < states.size(); ++k) unpack(Index(k), states[k].x);
+    SingleThreadedBlas single;
+    if (shared_ && !s_.symmetric) {  // exactly as the evaluations unpacked them
+      std::vector<std::int64_t> all(states.size());
+      std::vector<VectorXd> xs(states.size());
+      for (std::size_t k = 0; k < states.size(); ++k) {
+        all[k] = std::int64_t(k);
+        xs[k] = states[k].x;
+      }
+      shared_unpack(all, xs);
+    } else {
+      for (std::size_t k = 0; k < states.size(); ++k) unpack(Index(k), states[k].x);
+    }
     h = h_;
     theta = theta_;
   }
@@ -144,6 +167,14 @@ class Objectives {
   }
 
   const std::vector<Index>& units() const { return units_; }
+
+  std::string preconditioning() const {
+    if (shared_) return "whitened-shared";
+    if (centred_) return "centred";
+    for (const MatrixXd& L : factors_)
+      if (L.size()) return "whitened";
+    return "none";
+  }
 
  private:
   // Minimum-norm subgradient magnitude of g + c |x| in one coordinate.
@@ -186,6 +217,8 @@ class Objectives {
     const MatrixXd& L = factors_[std::size_t(i)];
     if (L.size()) {  // gradient in v = L^T p is L^-1 (gradient in p)
       L.triangularView<Eigen::Lower>().solveInPlace(gp);
+    } else if (shared_) {
+      // transformed by shared_gradients, for all evaluated units together
     } else if (centred_) {  // chain rule through theta_j = v_j / sd_j, h = v_h - sum m_j theta_j
       const double gh = gp(N_ - 1);
       for (Index a = 0; a < N_ - 1; ++a) {
@@ -243,6 +276,110 @@ class Objectives {
       factors_[std::size_t(i)] = std::move(L);
     });
   }
+
+  // Above kWhitenMaxUnits the per-unit factors would cost N^3 memory; the same whitening comes
+  // from one factor of the full M (N + 1 square). Unit i's parameters, padded to
+  // q = (Theta_{.,i} with Theta_ii = 0, h_i) in z order, are written q = L^-T v with L L^T = M:
+  // the constraint q_i = 0 becomes r_i . v = 0 with r_i = L^-1 e_i, so v lives in the hyperplane
+  // orthogonal to r_i and the gradient is projected onto it: g_v = P_i L^-1 g_q with
+  // P_i = I - r_i r_i^T / |r_i|^2. On that hyperplane the Hessian is then
+  //   P_i L^-1 (M with row and column i zeroed) L^-T P_i = P_i,
+  // exactly the identity (as the per-unit factor of M_{-i,-i} gives), while a plain drop of q_i
+  // would leave one eigenvalue M_ii (M^-1)_ii = 1 / (1 - R_i^2) (R_i: multiple correlation of
+  // unit i with the rest). L-BFGS steps are combinations of projected gradients, so iterates
+  // started on the hyperplane (v = L^T q) stay there up to rounding; unpacking drops q_i.
+  // The Hessian at J = 0 is (1 - m_i^2) M_{-i,-i} + 2 l2 on the couplings, so the factor is
+  // taken of M + (2 l2 / c) I on the spin entries (c: the mean of 1 - m_j^2), which also keeps it
+  // positive definite for duplicated units when l2 > 0. O(N^2) per unit and evaluation (two
+  // triangular solves); memory 2 (N + 1)^2 doubles. Falls back to centring if M is singular.
+  bool build_shared_whitening() {
+    SingleThreadedBlas single;  // set-up bits must not depend on OpenBLAS's thread count
+    MatrixXd M = f_.second_moments();
+    const VectorXd m = M.col(N_).head(N_);
+    const double c = (1.0 - m.array().square()).mean();
+    if (s_.l2 > 0 && c > 0) M.diagonal().head(N_).array() += 2.0 * s_.l2 / c;
+    Eigen::LLT<MatrixXd> llt(M);
+    if (llt.info() != Eigen::Success) return false;
+    MatrixXd L = llt.matrixL();
+    const double dmin = L.diagonal().minCoeff(), dmax = L.diagonal().maxCoeff();
+    if (!(dmin > 1e-6 * dmax)) return false;  // numerically singular
+    shared_Linv_ = L.triangularView<Eigen::Lower>().solve(MatrixXd::Identity(N_ + 1, N_ + 1));
+    shared_r2_ = shared_Linv_.colwise().squaredNorm().transpose();
+    shared_L_ = std::move(L);
+    shared_ = true;
+    return true;
+  }
+  VectorXd padded(Index i, const VectorXd& p) const {  // (Theta_{-i,i}, h_i) -> q (N + 1)
+    VectorXd q(N_ + 1);
+    for (Index a = 0; a < N_ - 1; ++a) q(a < i ? a : a + 1) = p(a);
+    q(i) = 0.0;
+    q(N_) = p(N_ - 1);
+    return q;
+  }
+  VectorXd to_shared(Index i, const VectorXd& p) const {
+    return shared_L_.triangularView<Eigen::Lower>().transpose() * padded(i, p);
+  }
+  // The triangular solves run as matrix solves over fixed chunks of kSharedChunk consecutive
+  // units (one pass over L per chunk instead of per unit: the solves are memory-bound on L).
+  // A unit's column always sits at the same place in a block of the same width, whatever else is
+  // evaluated, so its bits never depend on which other units run (the shard and MPI promise).
+  static constexpr Index kSharedChunk = 32;
+  template <typename Fn>
+  void for_shared_chunks(const std::vector<std::int64_t>& which, Fn&& fn) const {
+    std::vector<std::vector<std::int64_t>> groups;
+    std::vector<Index> chunk_of;
+    for (std::int64_t k : which) {
+      const Index c = units_[std::size_t(k)] / kSharedChunk;
+      if (chunk_of.empty() || chunk_of.back() != c) {
+        const auto at = std::find(chunk_of.begin(), chunk_of.end(), c);
+        if (at == chunk_of.end()) {
+          chunk_of.push_back(c);
+          groups.emplace_back();
+        } else {
+          groups[std::size_t(at - chunk_of.begin())].push_back(k);
+          continue;
+        }
+      }
+      groups.back().push_back(k);
+    }
+    parallel_for(Index(groups.size()), f_.threads(), [&](Index gi) {
+      const Index i0 = chunk_of[std::size_t(gi)] * kSharedChunk;
+      fn(i0, std::min(kSharedChunk, N_ - i0), groups[std::size_t(gi)]);
+    });
+  }
+  void shared_unpack(const std::vector<std::int64_t>& which, const std::vector<VectorXd>& x) {
+    for_shared_chunks(which, [&](Index i0, Index width, const std::vector<std::int64_t>& ks) {
+      MatrixXd V = MatrixXd::Zero(N_ + 1, width);
+      for (std::int64_t k : ks) V.col(units_[std::size_t(k)] - i0) = x[std::size_t(k)];
+      shared_L_.triangularView<Eigen::Lower>().transpose().solveInPlace(V);  // q = L^-T v
+      for (std::int64_t k : ks) {
+        const Index i = units_[std::size_t(k)];
+        const auto q = V.col(i - i0);
+        for (Index j = 0; j < N_; ++j) theta_(j, i) = j == i ? 0.0 : q(j);  // drops q_i (~0)
+        h_(i) = q(N_);
+      }
+    });
+  }
+  void shared_gradients(const std::vector<std::int64_t>& which, std::vector<VectorXd>& g) const {
+    for_shared_chunks(which, [&](Index i0, Index width, const std::vector<std::int64_t>& ks) {
+      MatrixXd Y = MatrixXd::Zero(N_ + 1, width);
+      for (std::int64_t k : ks) {
+        const Index i = units_[std::size_t(k)];
+        Y.col(i - i0) = padded(i, g[std::size_t(k)]);
+      }
+      shared_L_.triangularView<Eigen::Lower>().solveInPlace(Y);  // L^-1 g_q
+      for (std::int64_t k : ks) {
+        const Index i = units_[std::size_t(k)];
+        const auto r = shared_Linv_.col(i);
+        VectorXd y = Y.col(i - i0);
+        y -= r * (r.dot(y) / shared_r2_(i));  // onto the hyperplane r_i . v = 0
+        g[std::size_t(k)] = std::move(y);
+      }
+    });
+  }
+  bool shared_ = false;
+  MatrixXd shared_L_, shared_Linv_;
+  VectorXd shared_r2_;
 
   const LocalFields& f_;
   const LocalFitSettings& s_;
@@ -426,6 +563,7 @@ LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& s,
   out.h = h;
   out.theta = theta;
   out.units = fitted;
+  out.preconditioning = objectives.preconditioning();
   out.J = s.symmetric ? theta : MatrixXd(0.5 * (theta + theta.transpose()));
   out.evaluations = minimiser.evaluations();
   out.rounds = minimiser.rounds();
@@ -644,6 +782,7 @@ Provenance make_provenance(const SpinMatrix& data, const LocalFitRequest& req, c
   p.extra["tolerance"] = ff.settings.tolerance;
   p.extra["evaluations"] = r.evaluations;
   p.extra["rounds"] = r.rounds;
+  p.extra["preconditioning"] = r.preconditioning;
   if (!ff.selection.is_null()) p.extra["penalty_selection"] = ff.selection;
   return p;
 }

@@ -47,6 +47,9 @@ struct LocalFitResult {
   std::vector<std::int64_t> unit_iterations;  ///< per fitted unit, in `units` order
   std::vector<double> unit_objective;         ///< per fitted unit (symmetric: total / N)
   std::vector<std::int64_t> unconverged;
+  /// How the per-unit problems were conditioned: "whitened" (one factor per unit, <= 200
+  /// units), "whitened-shared" (one factor for all, above), "centred", or "none" (L1, symmetric).
+  std::string preconditioning;
 };
 
 /// Receives the optimiser's complete state (for checkpoints).

@@ -92,6 +92,25 @@ TEST_CASE("unit fits: shards assembled equal the unsharded fit (PLM L2, PLM L1, 
   }
 }
 
+TEST_CASE("unit fits: above 200 units (whitening from one shared factor) shards equal the full fit") {
+  // Per-unit PLM with L2 above 200 units whitens every unit from one factor of the data's second
+  // moments, with the triangular solves done over fixed blocks of 32 units: shards whose edges
+  // cut those blocks must still follow bit-identical iterates.
+  const SpinMatrix data = latent_data(213, 2500, 9);
+  FitOptions o;
+  o.l2 = 0.003;
+  o.tolerance = 1e-8;
+  const IsingModel full = fit_model(data, o);
+  CHECK(full.provenance.converged);
+  CHECK(full.provenance.extra.at("preconditioning") == "whitened-shared");
+  for (int shards : {3, 7}) {
+    CAPTURE(shards);
+    CHECK(max_abs_diff(full, sharded(data, o, shards)) == 0.0);
+  }
+  o.threads = 1;
+  CHECK(max_abs_diff(full, fit_model(data, o)) == 0.0);
+}
+
 TEST_CASE("unit fits: assembly refuses missing, duplicated and mismatched parts") {
   const SpinMatrix data = latent_data(6, 1500, 9);
   FitOptions o;

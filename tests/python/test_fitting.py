@@ -201,9 +201,10 @@ def test_threads_warm_start_interrupt_and_errors():
         spinfer.fit_pseudo_likelihood(X, l2=1e-3, warm_start=(np.zeros(3), np.zeros((3, 3))))
 
 
-def test_centred_inputs_above_200_units_reach_the_optimum():
-    """Above 200 units the per-unit problems run on centred, standardised inputs instead of the
-    full whitening; the optimum must not move. Oracles: the exact gradient of the per-unit
+def test_shared_whitening_above_200_units_reaches_the_optimum():
+    """Above 200 units the per-unit problems are whitened from one shared factor of the data's
+    second moments (projected onto each unit's constraint) instead of one factor per unit; the
+    optimum must not move. Oracles: the exact gradient of the per-unit
     objective computed with numpy (first-order optimality, |grad| <= 1e-8), and
     sklearn.linear_model.LogisticRegression (C = 2/(T l2), lbfgs, tol 1e-12): ours must reach an
     objective no higher than sklearn's, and agree with it to 2e-5. (On this sparse design sklearn
