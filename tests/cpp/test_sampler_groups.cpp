@@ -105,10 +105,11 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
         o.seed = 41;
         o.burn_in = 1030;  // past the first recomputation of the fields
         o.thin = 2;
-        // 11 chains: groups of 6 + 5; 11 x 7 + 4 samples, so four chains take one step more
-        // than the others (their group steps them alone at the end).
-        o.chains = 11;
-        o.samples = 11 * 7 + 4;
+        // 15 chains: groups of 8 + 7 (large enough for every kernel, Engine::min_group); 15 x 7
+        // + 4 samples, so four chains take one step more than the others (their group steps
+        // them alone at the end).
+        o.chains = 15;
+        o.samples = 15 * 7 + 4;
         o.threads = 1;
         const SampleSet alone = run(k.model, o, false).set;
         CHECK(alone.diagnostics.lock_step_groups == 0);
@@ -133,8 +134,8 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
 TEST_CASE("lock-step groups: automatic burn-in and persistent chains") {
   const IsingModel m = ring(40, 2, 0.3, 0.05, Convention::spin);
   SamplerOptions o;
-  o.chains = 9;
-  o.samples = 9 * 30;
+  o.chains = 15;
+  o.samples = 15 * 30;
   o.seed = 8;
   o.threads = 2;
   o.scan = "coloured";
