@@ -94,39 +94,39 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
       MESSAGE("this CPU does not run the " << std::string(isa) << " lock-step kernels: not tested");
       continue;
     }
-  for (const Case& k : cases)
-    for (const char* method : {"gibbs", "metropolis"})
-      for (const char* scan : {"sequential", "coloured"}) {
-        INFO(std::string(isa) << ": " << k.name << ", " << method << ", " << scan);
-        SamplerOptions o;
-        o.method = method;
-        o.scan = scan;
-        o.storage = k.storage;
-        o.seed = 41;
-        o.burn_in = 1030;  // past the first recomputation of the fields
-        o.thin = 2;
-        // 15 chains: groups of 8 + 7 (large enough for every kernel, Engine::min_group); 15 x 7
-        // + 4 samples, so four chains take one step more than the others (their group steps
-        // them alone at the end).
-        o.chains = 15;
-        o.samples = 15 * 7 + 4;
-        o.threads = 1;
-        const SampleSet alone = run(k.model, o, false).set;
-        CHECK(alone.diagnostics.lock_step_groups == 0);
-        const SampleSet grouped = run(k.model, o, true).set;
-        CHECK(grouped.diagnostics.lock_step_groups == 2);
-        check_same(alone, grouped);
-        o.threads = 2;
-        check_same(alone, run(k.model, o, true).set);
-        // The first chain of the run, alone in a one-chain run (a one-lane group).
-        o.chains = 1;
-        o.samples = 7;
-        const SampleSet first = run(k.model, o, true).set;
-        REQUIRE(first.samples.rows() == 7);
-        const std::int64_t n = 7 * first.samples.cols();
-        CHECK(std::equal(first.samples.data(), first.samples.data() + n, alone.samples.data()));
-        CHECK(std::equal(first.energies.begin(), first.energies.end(), alone.energies.begin()));
-      }
+    for (const Case& k : cases)
+      for (const char* method : {"gibbs", "metropolis"})
+        for (const char* scan : {"sequential", "coloured"}) {
+          INFO(std::string(isa) << ": " << k.name << ", " << method << ", " << scan);
+          SamplerOptions o;
+          o.method = method;
+          o.scan = scan;
+          o.storage = k.storage;
+          o.seed = 41;
+          o.burn_in = 1030;  // past the first recomputation of the fields
+          o.thin = 2;
+          // 15 chains: groups of 8 + 7 (large enough for every kernel, Engine::min_group); 15 x 7
+          // + 4 samples, so four chains take one step more than the others (their group steps
+          // them alone at the end).
+          o.chains = 15;
+          o.samples = 15 * 7 + 4;
+          o.threads = 1;
+          const SampleSet alone = run(k.model, o, false).set;
+          CHECK(alone.diagnostics.lock_step_groups == 0);
+          const SampleSet grouped = run(k.model, o, true).set;
+          CHECK(grouped.diagnostics.lock_step_groups == 2);
+          check_same(alone, grouped);
+          o.threads = 2;
+          check_same(alone, run(k.model, o, true).set);
+          // The first chain, in a one-chain run (too few chains for a group): the same bits.
+          o.chains = 1;
+          o.samples = 7;
+          const SampleSet first = run(k.model, o, true).set;
+          REQUIRE(first.samples.rows() == 7);
+          const std::int64_t n = 7 * first.samples.cols();
+          CHECK(std::equal(first.samples.data(), first.samples.data() + n, alone.samples.data()));
+          CHECK(std::equal(first.energies.begin(), first.energies.end(), alone.energies.begin()));
+        }
   }
   detail::use_group_kernel_isa(nullptr);
 }
