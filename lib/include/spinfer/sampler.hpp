@@ -34,7 +34,9 @@
 // random stream Rng(seed, c), so a seed gives identical samples for every thread count. Chains
 // start from independent uniformly random states (or all-active / all-inactive states).
 // Without parallel tempering and with the sequential or coloured scan, the chains of a thread run
-// in lock-step groups of up to 8 (at least one group per thread when there are enough chains):
+// in lock-step groups of up to 8 (at least one group per thread when there are enough chains;
+// groups of fewer than 3 chains, or 7 for the coloured scan on uniform couplings, are not worth
+// forming and those chains run alone):
 // the group's chains update the same unit together, their draws, fields and accept decisions
 // held as vectors across the chains. Every chain still does its own arithmetic in the same order,
 // so its samples are the same bits in any group and for any number of chains, threads or ranks;
