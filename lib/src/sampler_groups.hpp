@@ -4,8 +4,8 @@
 // Every chain of a group updates the same unit at the same time, so one vector holds that unit's
 // draws, fields or values for all chains, and the accept decisions are computed for all of them
 // without a branch. A chain's arithmetic is the one of the single-chain kernels in sampler.cpp,
-// operation for operation (same generator bits, same table brackets and exact tests, same field
-// updates through add_scaled, same integer sums), and every file involved is compiled with
+// operation for operation (same generator bits, same table brackets and exact tests, field
+// updates as add_scaled does them (a product, then a sum), same integer sums), and every file involved is compiled with
 // -ffp-contract=off, so a chain's samples do not depend on its group, its lane or the CPU's
 // vector width: chain c gives the same bits alone, in any group, on any thread or rank.
 //
