@@ -21,7 +21,9 @@ numpy sampler run in 2 processes at once (same core count for both), summing the
 spinfer modes: the default (scan="sequential") and, on the lattice, scan="coloured" (the fastest
 mode there: colours of the coupling graph in turn, each colour updated as vectors, batched draws,
 exact tabulated thresholds). The 1-thread rows run one chain; "vs numpy ..." rows repeat a
-spinfer rate against another numpy baseline for reference.
+spinfer rate against another numpy baseline for reference. The "8 chains" / "16 chains" rows
+run 8 chains per thread, which spinfer advances as one lock-step group (vectors across chains;
+"groups" gives the number); the numpy baselines are the same as for the other rows.
 Every spinfer run keeps one sample every 10 sweeps (the numpy baselines keep none).
 Prints JSON lines: {"name", "updates_per_second", "ratio", "cpu_ratio"} where ratio = spinfer /
 best numpy for that model in wall-clock time. On a shared machine wall-clock rates swing with the
@@ -202,6 +204,13 @@ def main():
     r2, d = spinfer_rate(h, J, sweeps // 2, 4, 2)
     emit("dense N=200 spinfer 2 threads (4 chains) vs numpy 2 processes", r2, np2,
          storage=d["storage"])
+    # Lock-step groups: 8 chains per thread update the same unit together.
+    r8, d8 = spinfer_rate(h, J, sweeps // 8, 8, 1)
+    emit("dense N=200 spinfer 1 thread, 8 chains (one lock-step group)", r8, best,
+         cpu=(d8["cpu_rate"], bestc), groups=d8.get("lock_step_groups"))
+    r16, d = spinfer_rate(h, J, sweeps // 16, 16, 2)
+    emit("dense N=200 spinfer 2 threads, 16 chains (lock-step groups) vs numpy 2 processes", r16,
+         np2, groups=d.get("lock_step_groups"))
 
     # --- 64 x 64 periodic lattice ---
     L, K = 64, 0.4
@@ -224,6 +233,12 @@ def main():
         r2, d = spinfer_rate(hl, Jl, sweeps // 2, 4, 2, scan)
         emit(f"lattice 64x64 spinfer 2 threads, 4 chains ({label}) vs numpy 2 processes", r2, npl2,
              storage=d["storage"])
+        r8, d = spinfer_rate(hl, Jl, sweeps // 8, 8, 1, scan)
+        emit(f"lattice 64x64 spinfer 1 thread, 8 chains ({label}, one lock-step group)", r8, bestl,
+             cpu=(d["cpu_rate"], bestlc), groups=d.get("lock_step_groups"))
+        r16, d = spinfer_rate(hl, Jl, sweeps // 16, 16, 2, scan)
+        emit(f"lattice 64x64 spinfer 2 threads, 16 chains ({label}, lock-step groups) vs numpy 2 "
+             "processes", r16, npl2, groups=d.get("lock_step_groups"))
 
 
 if __name__ == "__main__":

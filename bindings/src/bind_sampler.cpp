@@ -107,6 +107,7 @@ py::dict diagnostics_dict(const SamplerDiagnostics& d) {
   r["ladder_acceptance"] = py::array(py::cast(d.ladder_acceptance));
   r["seconds"] = d.seconds;
   r["updates"] = d.updates;
+  r["lock_step_groups"] = d.lock_step_groups;
   r["warnings"] = d.warnings;
   return r;
 }

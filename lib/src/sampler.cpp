@@ -12,6 +12,7 @@
 #include <tuple>
 
 #include "sampler_engine.hpp"
+#include "sampler_groups.hpp"
 #include "sampler_kernels.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/rng.hpp"
@@ -95,6 +96,10 @@ struct Replica {
   mutable bool stale = false;
   std::vector<double> H;  // local fields h_i + sum_j J_ij v_j
   std::vector<std::int32_t> small;  // uniform couplings: v by scan position, then a 0 (padding)
+  // Uniform couplings in a lock-step group: the values live at packed[position * kGroupWidth +
+  // lane] (the group's storage) instead of `small`.
+  std::int8_t* packed = nullptr;
+  std::int64_t lane = 0;
   double E = 0;
 };
 
@@ -110,6 +115,17 @@ struct Chain {
   Lanes lanes{};
   std::vector<std::uint64_t> level_thresholds;
   std::vector<std::uint32_t> threshold_high, threshold_low, words;  // the same, in 32-bit lanes
+};
+
+/// Up to kGroupWidth chains advanced in lock-step (sampler_groups.hpp): single-temperature runs
+/// with the sequential or coloured scan. The group owns its chains' generators from its creation
+/// on (the chains' own `lanes` are no longer used) and, for uniform couplings, their values.
+struct Group {
+  std::vector<std::size_t> members;   // chain indices; member m runs in lane m
+  GroupLanes lanes{};
+  std::vector<std::uint64_t> draws;   // kGroupChunk x kGroupWidth scratch
+  std::vector<std::int8_t> packed;    // uniform couplings: [N + 1][kGroupWidth]
+  std::vector<double> spare;          // other models: N readable doubles for empty lanes
 };
 
 class Engine {
@@ -253,8 +269,13 @@ class Engine {
   /// The replica's unit values (by unit), brought up to date from the uniform kernel's copy.
   const std::vector<double>& values(const Replica& r) const {
     if (r.stale) {
-      for (std::int64_t i = 0; i < N_; ++i)
-        r.v[std::size_t(order_[std::size_t(i)])] = double(r.small[std::size_t(i)]);
+      if (r.packed) {
+        for (std::int64_t i = 0; i < N_; ++i)
+          r.v[std::size_t(order_[std::size_t(i)])] = double(r.packed[i * kGroupWidth + r.lane]);
+      } else {
+        for (std::int64_t i = 0; i < N_; ++i)
+          r.v[std::size_t(order_[std::size_t(i)])] = double(r.small[std::size_t(i)]);
+      }
       r.stale = false;
     }
     return r.v;
@@ -272,10 +293,123 @@ class Engine {
     return s / double(N_);
   }
 
+  /// Whether chains can run in lock-step groups: one temperature (no replica exchanges, whose
+  /// outcomes differ between chains) and a scan order shared by all chains (not "random").
+  bool lock_step() const { return slots() == 1 && !random_scan_; }
+
+  /// Smallest group worth forming (measured on dense N = 200 and a 64 x 64 lattice): a group's
+  /// step costs about the same with one chain as with eight, and the uniform coloured kernel
+  /// already runs one chain as vectors over the sites; smaller groups run their chains alone.
+  std::int64_t min_group() const { return uniform_ && coloured_ ? 7 : 3; }
+
+  /// Takes the chains chains[members] into a group: their generators and (uniform couplings)
+  /// values move into the group's storage; each chain's bits continue unchanged.
+  void form_group(Group& g, std::vector<Chain>& chains) const {
+    const auto W = std::size_t(kGroupWidth);
+    g.draws.assign(std::size_t(kGroupChunk) * W, 0);
+    for (std::size_t m = 0; m < g.members.size(); ++m) {
+      const Chain& c = chains[g.members[m]];
+      for (std::size_t w = 0; w < 4; ++w)
+        for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.lanes.s[w][l][m] = c.lanes.s[w][l];
+    }
+    if (uniform_) {
+      g.packed.assign(std::size_t(N_ + 1) * W, std::int8_t(lo_));
+      std::fill(g.packed.end() - std::ptrdiff_t(W), g.packed.end(), std::int8_t(0));
+      for (std::size_t m = 0; m < g.members.size(); ++m) {
+        Replica& r = chains[g.members[m]].replicas[0];
+        values(r);
+        r.packed = g.packed.data();
+        r.lane = std::int64_t(m);
+        for (std::int64_t i = 0; i < N_; ++i)
+          r.packed[i * kGroupWidth + r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
+        r.small.clear();
+      }
+    } else {
+      g.spare.assign(std::size_t(N_), 0.0);
+    }
+  }
+
+  /// One step of the group's chains in `active` (bit m: member m): what step() does for each.
+  void step_group(Group& g, std::vector<Chain>& chains, unsigned active) const {
+    const std::size_t n = g.members.size();
+    const unsigned all = (1u << n) - 1;
+    GroupLanes saved;
+    if (active != all) saved = g.lanes;  // chains that sit this step out keep their generators
+    std::int64_t flips[kGroupWidth] = {};
+    if (uniform_) {
+      GroupUniform a;
+      a.x = g.packed.data();
+      a.nb = nb_.data();
+      a.stride = N_;
+      a.degree = dmax_;
+      a.colour_start = colour_start_.data();
+      a.colours = std::int64_t(colour_start_.size()) - 1;
+      a.table = chains[g.members[0]].level_thresholds.data();
+      a.lo = std::int8_t(lo_);
+      a.hi = std::int8_t(hi_);
+      a.gibbs = gibbs_;
+      a.active = active;
+      a.lanes = &g.lanes;
+      a.draws = g.draws.data();
+      group_uniform_sweep(a);
+      for (std::size_t m = 0; m < n; ++m) {
+        if (!(active >> m & 1)) continue;
+        Replica& r = chains[g.members[m]].replicas[0];
+        r.stale = true;
+        r.E -= h0_ * double(a.dv[m]) + K_ * double(a.dv_S[m]);
+        flips[m] = a.flips[m];
+      }
+    } else {
+      GroupGeneral a;
+      for (std::size_t m = 0; m < std::size_t(kGroupWidth); ++m) {
+        Replica* r = m < n ? &chains[g.members[m]].replicas[0] : nullptr;
+        a.v[m] = r ? r->v.data() : g.spare.data();
+        a.H[m] = r ? r->H.data() : g.spare.data();
+        a.E[m] = r ? r->E : 0.0;
+      }
+      a.active = active;
+      a.N = N_;
+      a.order = coloured_ ? order_.data() : nullptr;
+      if (couplings_.sparse) {
+        a.offsets = couplings_.offsets.data();
+        a.index = couplings_.index.data();
+        a.value = couplings_.value.data();
+      } else {
+        a.dense = couplings_.dense.data();
+      }
+      a.lo = lo_;
+      a.hi = hi_;
+      a.beta = betas_[0];
+      a.gibbs = gibbs_;
+      a.lanes = &g.lanes;
+      a.draws = g.draws.data();
+      group_general_sweep(a);
+      for (std::size_t m = 0; m < n; ++m) {
+        if (!(active >> m & 1)) continue;
+        chains[g.members[m]].replicas[0].E = a.E[m];
+        flips[m] = a.flips[m];
+      }
+    }
+    for (std::size_t m = 0; m < n; ++m) {
+      if (active >> m & 1) {
+        Chain& c = chains[g.members[m]];
+        c.slot_flips[0] += flips[m];
+        c.slot_updates[0] += N_;
+        if (++c.steps % 1024 == 0) refresh(c.replicas[0]);
+      } else {
+        for (std::size_t w = 0; w < 4; ++w)
+          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.lanes.s[w][l][m] = saved.s[w][l][m];
+      }
+    }
+  }
+
  private:
   void refresh(Replica& r) const {
     values(r);
-    if (uniform_) {
+    if (uniform_ && r.packed) {
+      for (std::int64_t i = 0; i < N_; ++i)
+        r.packed[i * kGroupWidth + r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
+    } else if (uniform_) {
       r.small.assign(std::size_t(N_ + 1), 0);
       for (std::int64_t i = 0; i < N_; ++i) r.small[std::size_t(i)] = std::int32_t(r.v[std::size_t(order_[std::size_t(i)])]);
     }
@@ -452,11 +586,13 @@ double seconds_since(std::chrono::steady_clock::time_point t0) {
 /// Runs chains[c] for steps[c] steps each; `after(c, i)` runs after step i of chain c. Work goes
 /// in rounds sized from the measured speed to last about 0.2 s; between rounds the progress
 /// callback runs on the calling thread (returning false throws Interrupted). Round boundaries
-/// never change results: each chain only depends on its own stream.
+/// never change results: each chain only depends on its own stream. With lock-step groups the
+/// groups are the parallel work items; a group steps the members that still have steps to do.
 class Driver {
  public:
-  Driver(const Engine& e, std::vector<Chain>& chains, const SamplerOptions& o)
-      : engine_(e), chains_(chains), o_(o), threads_(resolve_threads(o.threads)),
+  Driver(const Engine& e, std::vector<Chain>& chains, std::vector<Group>& groups,
+         const SamplerOptions& o)
+      : engine_(e), chains_(chains), groups_(groups), o_(o), threads_(resolve_threads(o.threads)),
         t0_(std::chrono::steady_clock::now()) {}
 
   void run(const std::string& stage, const std::vector<std::int64_t>& steps,
@@ -471,14 +607,29 @@ class Driver {
     for (std::int64_t begin = 0; begin < longest;) {
       const std::int64_t end = std::min(longest, begin + round);
       const auto t = std::chrono::steady_clock::now();
-      parallel_for(C, threads_, [&](std::int64_t c) {
-        Chain& ch = chains_[std::size_t(c)];
-        const std::int64_t stop = std::min(end, steps[std::size_t(c)]);
-        for (std::int64_t i = begin; i < stop; ++i) {
-          engine_.step(ch);
-          after(std::size_t(c), i);
-        }
-      });
+      if (groups_.empty()) {
+        parallel_for(C, threads_, [&](std::int64_t c) {
+          Chain& ch = chains_[std::size_t(c)];
+          const std::int64_t stop = std::min(end, steps[std::size_t(c)]);
+          for (std::int64_t i = begin; i < stop; ++i) {
+            engine_.step(ch);
+            after(std::size_t(c), i);
+          }
+        });
+      } else {
+        parallel_for(std::int64_t(groups_.size()), threads_, [&](std::int64_t gi) {
+          Group& g = groups_[std::size_t(gi)];
+          for (std::int64_t i = begin; i < end; ++i) {
+            unsigned active = 0;
+            for (std::size_t m = 0; m < g.members.size(); ++m)
+              if (steps[g.members[m]] > i) active |= 1u << m;
+            if (!active) break;
+            engine_.step_group(g, chains_, active);
+            for (std::size_t m = 0; m < g.members.size(); ++m)
+              if (active >> m & 1) after(g.members[m], i);
+          }
+        });
+      }
       const double took = seconds_since(t);
       const double factor = took > 0 ? std::clamp(0.2 / took, 0.25, 4.0) : 4.0;
       round = std::max<std::int64_t>(1, std::int64_t(double(end - begin) * factor));
@@ -502,6 +653,7 @@ class Driver {
  private:
   const Engine& engine_;
   std::vector<Chain>& chains_;
+  std::vector<Group>& groups_;
   const SamplerOptions& o_;
   int threads_;
   std::chrono::steady_clock::time_point t0_;
@@ -632,7 +784,21 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     for (std::int64_t c = 0; c < C; ++c)
       for (auto& rep : chains[std::size_t(c)].replicas) engine.load(rep, st.active.data() + c * N);
   }
-  Driver driver(engine, chains, o);
+  // Lock-step groups: at least one per thread when there are enough chains, at most kGroupWidth
+  // chains each, sizes as equal as possible. Grouping never changes a chain's samples.
+  std::vector<Group> groups;
+  if (rq.lock_step && engine.lock_step() && nL > 0) {
+    const auto count = std::int64_t(nL), width = kGroupWidth;
+    const std::int64_t n_groups = std::max((count + width - 1) / width,
+                                           std::min<std::int64_t>(resolve_threads(o.threads), count));
+    if (count / n_groups >= engine.min_group()) {
+      groups.resize(std::size_t(n_groups));
+      for (std::int64_t c = 0; c < count; ++c)
+        groups[std::size_t(c * n_groups / count)].members.push_back(std::size_t(c));
+      for (Group& g : groups) engine.form_group(g, chains);
+    }
+  }
+  Driver driver(engine, chains, groups, o);
 
   EngineResult res;
   SamplerDiagnostics& d = res.set.diagnostics;
@@ -815,6 +981,12 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
       const std::vector<double>& v = engine.values(r);
       for (std::int64_t k = 0; k < N; ++k) st.active[std::size_t(c * N + k)] = v[std::size_t(k)] != lo;
     }
+  }
+  d.lock_step_groups = std::int64_t(groups.size());
+  if (team) {
+    double n = double(groups.size());
+    team->sum(&n, 1);
+    d.lock_step_groups = std::int64_t(n);
   }
   d.seconds = driver.elapsed();
   for (const auto& ch : chains) d.updates += double(ch.steps) * double(N) * double(K);

@@ -17,6 +17,8 @@ struct EngineRequest {
                                       ///< states of the target slot (single-temperature runs)
   const Team* team = nullptr;       ///< ranks sharing the chains (SamplerOptions::team); not
                                     ///< with persistent or all_slot_energies
+  bool lock_step = true;            ///< run chains in lock-step groups where the scan allows
+                                    ///< (false: every chain alone; the samples are the same)
 };
 
 struct EngineResult {

@@ -66,7 +66,6 @@ class AcceptanceTable {
   static bool exact_heat_bath(double x, std::uint64_t m);
   static bool exact_metropolis(double y, std::uint64_t m);
 
- private:
   static constexpr double kRange = 20.0;   // logistic table over x in [-20, 20]; decay over [0, 40]
   static constexpr double kPerUnit = 16.0; // cells per unit of the argument
   static constexpr std::int64_t kCells = 640;
@@ -74,6 +73,11 @@ class AcceptanceTable {
   struct Bracket {
     std::uint64_t lower, upper;
   };
+  /// The tables the lock-step kernels (sampler_groups.inc) index the same way as above.
+  const Bracket* logistic_cells() const { return logistic_.data(); }
+  const Bracket* decay_cells() const { return decay_.data(); }
+
+ private:
   /// 1: m < lower (pass), 2: m >= upper (fail), 0: in between. Sign bits of differences of
   /// numbers below 2^54, so no comparison becomes a branch.
   static int decide(const Bracket& b, std::uint64_t m) {

@@ -33,6 +33,14 @@
 // Chains: `chains` independent chains, run in parallel over `threads`. Chain c draws from its own
 // random stream Rng(seed, c), so a seed gives identical samples for every thread count. Chains
 // start from independent uniformly random states (or all-active / all-inactive states).
+// Without parallel tempering and with the sequential or coloured scan, the chains of a thread run
+// in lock-step groups of up to 8 (at least one group per thread when there are enough chains;
+// groups of fewer than 3 chains, or 7 for the coloured scan on uniform couplings, are not worth
+// forming and those chains run alone):
+// the group's chains update the same unit together, their draws, fields and accept decisions
+// held as vectors across the chains. Every chain still does its own arithmetic in the same order,
+// so its samples are the same bits in any group and for any number of chains, threads or ranks;
+// grouping only changes the speed (8 chains per thread make full groups).
 //
 // Burn-in and thinning (in sweeps). A negative value means automatic: a pilot run of
 // `pilot_sweeps` sweeps per chain records the energy after every sweep, and the integrated
@@ -121,6 +129,9 @@ struct SamplerDiagnostics {
   std::vector<double> ladder_acceptance;  ///< flip rate at each ladder temperature
   double seconds = 0;
   double updates = 0;                   ///< single-unit updates performed (all replicas)
+  /// Lock-step groups the chains ran in (all ranks together; 0: every chain alone). Groups of
+  /// up to 8 chains update the same unit together (see "Chains" above); a speed matter only.
+  std::int64_t lock_step_groups = 0;
   std::vector<std::string> warnings;
 };
 

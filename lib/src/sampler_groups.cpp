@@ -1,0 +1,88 @@
+// Picks the copy of the lock-step kernels (sampler_groups.inc) that the CPU runs.
+#include "sampler_groups.hpp"
+
+#include <atomic>
+#include <cstring>
+
+namespace spinfer::detail {
+
+void group_uniform_sweep_generic(GroupUniform&);
+void group_general_sweep_generic(GroupGeneral&);
+#if defined(__x86_64__) && defined(__GNUC__)
+void group_uniform_sweep_avx2(GroupUniform&);
+void group_general_sweep_avx2(GroupGeneral&);
+void group_uniform_sweep_avx512(GroupUniform&);
+void group_general_sweep_avx512(GroupGeneral&);
+#endif
+
+namespace {
+
+enum class Isa { generic, avx2, avx512 };
+
+Isa widest_isa() {
+#if defined(__x86_64__) && defined(__GNUC__)
+  static const Isa isa = __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512dq") &&
+                                 __builtin_cpu_supports("avx512bw") && __builtin_cpu_supports("avx512vl")
+                             ? Isa::avx512
+                         : __builtin_cpu_supports("avx2") ? Isa::avx2
+                                                          : Isa::generic;
+  return isa;
+#else
+  return Isa::generic;
+#endif
+}
+
+std::atomic<int> chosen{-1};  // use_group_kernel_isa's choice; -1: the widest
+
+Isa cpu_isa() {
+  const int c = chosen.load(std::memory_order_relaxed);
+  return c < 0 ? widest_isa() : Isa(c);
+}
+
+}  // namespace
+
+void group_uniform_sweep(GroupUniform& a) {
+  switch (cpu_isa()) {
+#if defined(__x86_64__) && defined(__GNUC__)
+    case Isa::avx512: return group_uniform_sweep_avx512(a);
+    case Isa::avx2: return group_uniform_sweep_avx2(a);
+#endif
+    default: return group_uniform_sweep_generic(a);
+  }
+}
+
+void group_general_sweep(GroupGeneral& a) {
+  const AcceptanceTable& table = acceptance_table();
+  a.cells = a.gibbs ? table.logistic_cells() : table.decay_cells();
+  switch (cpu_isa()) {
+#if defined(__x86_64__) && defined(__GNUC__)
+    case Isa::avx512: return group_general_sweep_avx512(a);
+    case Isa::avx2: return group_general_sweep_avx2(a);
+#endif
+    default: return group_general_sweep_generic(a);
+  }
+}
+
+const char* group_kernel_isa() {
+  switch (cpu_isa()) {
+    case Isa::avx512: return "avx512";
+    case Isa::avx2: return "avx2";
+    default: return "generic";
+  }
+}
+
+bool use_group_kernel_isa(const char* name) {
+  if (!name) {
+    chosen = -1;
+    return true;
+  }
+  const Isa want = std::strcmp(name, "avx512") == 0 ? Isa::avx512
+                   : std::strcmp(name, "avx2") == 0 ? Isa::avx2
+                   : std::strcmp(name, "generic") == 0 ? Isa::generic
+                                                       : Isa(-1);
+  if (int(want) < 0 || int(want) > int(widest_isa())) return false;
+  chosen = int(want);
+  return true;
+}
+
+}  // namespace spinfer::detail
