@@ -8,6 +8,7 @@
 #include <cmath>
 #include <exception>
 #include <limits>
+#include <map>
 
 #include "spinfer/errors.hpp"
 #include "spinfer/penalty_path.hpp"
@@ -326,25 +327,12 @@ class Objectives {
   static constexpr Index kSharedChunk = 32;
   template <typename Fn>
   void for_shared_chunks(const std::vector<std::int64_t>& which, Fn&& fn) const {
-    std::vector<std::vector<std::int64_t>> groups;
-    std::vector<Index> chunk_of;
-    for (std::int64_t k : which) {
-      const Index c = units_[std::size_t(k)] / kSharedChunk;
-      if (chunk_of.empty() || chunk_of.back() != c) {
-        const auto at = std::find(chunk_of.begin(), chunk_of.end(), c);
-        if (at == chunk_of.end()) {
-          chunk_of.push_back(c);
-          groups.emplace_back();
-        } else {
-          groups[std::size_t(at - chunk_of.begin())].push_back(k);
-          continue;
-        }
-      }
-      groups.back().push_back(k);
-    }
-    parallel_for(Index(groups.size()), f_.threads(), [&](Index gi) {
-      const Index i0 = chunk_of[std::size_t(gi)] * kSharedChunk;
-      fn(i0, std::min(kSharedChunk, N_ - i0), groups[std::size_t(gi)]);
+    std::map<Index, std::vector<std::int64_t>> by_chunk;  // chunk -> its problems in `which`
+    for (std::int64_t k : which) by_chunk[units_[std::size_t(k)] / kSharedChunk].push_back(k);
+    const std::vector<std::pair<Index, std::vector<std::int64_t>>> groups(by_chunk.begin(), by_chunk.end());
+    parallel_for(Index(groups.size()), f_.threads(), [&](Index g) {
+      const Index i0 = groups[std::size_t(g)].first * kSharedChunk;
+      fn(i0, std::min(kSharedChunk, N_ - i0), groups[std::size_t(g)].second);
     });
   }
   void shared_unpack(const std::vector<std::int64_t>& which, const std::vector<VectorXd>& x) {
