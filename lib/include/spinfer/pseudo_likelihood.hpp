@@ -68,7 +68,10 @@ struct PseudoLikelihoodOptions {
 /// Fits by pseudo-likelihood. Provenance: method "pseudo-likelihood", l1, l2 (the values used),
 /// iterations, converged, objective (the minimised penalised objective: per-variable, the sum
 /// over units before averaging the pairs), samples, units, version, extra {"variant",
-/// "representation", "unconverged_units", and "penalty_selection" when a penalty was chosen}.
+/// "representation", "unconverged_units", "preconditioning" ("whitened": one factor of the
+/// inputs' second moments per unit, up to 200 units; "whitened-shared": one factor for all units,
+/// above; "centred"; "none"), "tolerance", "evaluations", "rounds", "unit_ranks" (MPI, units
+/// shared), and "penalty_selection" when a penalty was chosen}.
 /// Throws InputError for constant units (a field would be infinite) or a warm start of the wrong
 /// size, Interrupted when the progress callback returns false.
 IsingModel fit_pseudo_likelihood(const SpinMatrix& data, const PseudoLikelihoodOptions& options = {});

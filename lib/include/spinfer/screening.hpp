@@ -39,7 +39,8 @@ struct ScreeningOptions {
 };
 
 /// Fits by interaction screening. Provenance: method "screening", extra {"variant": "rise" |
-/// "log-rise", "symmetric", "representation", "unconverged_units", "penalty_selection"}.
+/// "log-rise", "symmetric", "representation", "unconverged_units", "preconditioning",
+/// "penalty_selection", ... as fit_pseudo_likelihood}.
 IsingModel fit_screening(const SpinMatrix& data, const ScreeningOptions& options = {});
 
 }  // namespace spinfer
