@@ -9,6 +9,7 @@
 
 #include "signals.hpp"
 #include "spinfer/atomic_file.hpp"
+#include "spinfer/checksum.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/version.hpp"
 
@@ -50,7 +51,7 @@ void add_checkpoint_options(CLI::App& sub, CheckpointArgs& args) {
 nlohmann::json make_fingerprint(const std::vector<std::pair<std::string, std::string>>& inputs,
                                 nlohmann::json settings) {
   nlohmann::json files = nlohmann::json::object();
-  for (const auto& [name, path] : inputs) files[name] = file_checksum(path);
+  for (const auto& [name, path] : inputs) files[name] = file_fnv1a64(path);
   return {{"version", spinfer::version()}, {"inputs", files}, {"settings", std::move(settings)}};
 }
 

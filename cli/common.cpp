@@ -65,11 +65,10 @@ spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string&
   };
 }
 
-std::string file_checksum(const std::string& path) { return file_fnv1a64(path); }
 
 nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string>& inputs) {
   nlohmann::json files = nlohmann::json::array();
-  for (const auto& f : inputs) files.push_back({{"path", f}, {"fnv1a64", file_checksum(f)}});
+  for (const auto& f : inputs) files.push_back({{"path", f}, {"fnv1a64", file_fnv1a64(f)}});
   return {{"command_line", ctx.argv}, {"version", spinfer::version()}, {"seed", ctx.common.seed},
           {"threads", ctx.common.threads}, {"ranks", ctx.ranks()}, {"inputs", files}};
 }

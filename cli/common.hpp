@@ -65,9 +65,6 @@ spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string&
 /// each input.
 nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string>& inputs);
 
-/// 64-bit FNV-1a checksum of a file's bytes, as 16 hex digits (throws FileError if unreadable).
-std::string file_checksum(const std::string& path);
-
 /// A penalty option: empty -> unset (the method's default), "auto" -> chosen on held-out data,
 /// else a number >= 0 (InputError otherwise, naming the option).
 std::optional<double> parse_penalty(const std::string& text, const std::string& option);

@@ -57,11 +57,7 @@ int run(int argc, char** argv, const spinfer::Team& team, const std::string& mpi
 
   try {
     app.parse(argc, argv);
-  } catch (const CLI::CallForHelp& e) {
-    return ctx.root() ? app.exit(e) : kOk;
-  } catch (const CLI::CallForAllHelp& e) {
-    return ctx.root() ? app.exit(e) : kOk;
-  } catch (const CLI::CallForVersion& e) {
+  } catch (const CLI::Success& e) {  // --help, --help-all, --version
     return ctx.root() ? app.exit(e) : kOk;
   } catch (const CLI::ParseError& e) {
     if (ctx.root()) app.exit(e);

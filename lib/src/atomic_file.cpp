@@ -72,13 +72,6 @@ struct Replaced {
 void write_files_atomically(const std::vector<FileOutput>& outputs) {
   std::vector<std::unique_ptr<RemoveOnExit>> staged;
   for (const auto& o : outputs) staged.push_back(stage(o));
-  if (staged.size() == 1) {  // nothing to roll back: one rename is atomic by itself
-    if (std::rename(staged[0]->p.c_str(), outputs[0].first.c_str()) != 0)
-      throw FileError(outputs[0].first + ": cannot move the finished file into place (" +
-                      std::strerror(errno) + ")");
-    staged[0]->armed = false;
-    return;
-  }
   std::vector<Replaced> done;
   auto roll_back = [&] {
     for (auto it = done.rbegin(); it != done.rend(); ++it) {
@@ -95,9 +88,10 @@ void write_files_atomically(const std::vector<FileOutput>& outputs) {
     const fs::path target(outputs[k].first);
     Replaced r{target, nullptr};
     std::error_code ec;
-    if (fs::is_regular_file(target, ec)) {
-      // Keep the previous file under another name (a hard link costs nothing; copy if the
-      // file system has none) so that a later failure can put it back.
+    // Keep the previous file under another name (a hard link costs nothing; copy if the file
+    // system has none) so that a later failure can put it back. The last output needs none: once
+    // its rename succeeds nothing can fail (and a single file is simply one atomic rename).
+    if (k + 1 < outputs.size() && fs::is_regular_file(target, ec)) {
       r.backup = std::make_unique<RemoveOnExit>(temporary_sibling(target, "old"));
       fs::create_hard_link(target, r.backup->p, ec);
       if (ec) {

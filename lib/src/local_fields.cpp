@@ -250,12 +250,8 @@ MatrixXd LocalFields::second_moments() const {
     MatrixXd M(N + 1, N + 1);
     for (std::int64_t s = first_segment_ + a; s < first_segment_ + b; ++s) {
       M.setZero();
-      if (sparse) {
-        sparse_second_moments(s, M);
-        split_add(grid, M.data(), &lv[0], &lv[n], &lv[2 * n], std::int64_t(n));
-        continue;
-      }
-      for_each_piece(s, [&](const RowRange& g) {
+      if (sparse) sparse_second_moments(s, M);
+      else for_each_piece(s, [&](const RowRange& g) {
         for (std::int64_t b0 = g.begin; b0 < g.end; b0 += block) {
           const std::int64_t nb = std::min(block, g.end - b0);
           MatrixXd Z(N + 1, nb);
@@ -336,22 +332,22 @@ void LocalFields::evaluate(LocalLoss loss, const MatrixXd& theta, const VectorXd
   const std::int64_t rows = gradient ? N_ + 2 : 1;
   const std::size_t n = std::size_t(rows * chunk) * todo.size();
   std::vector<double> levels(team_ ? 3 * n : 0, 0.0);
+  VectorXd bounds(N_);  // bound(i) of the computed units, filled by their chunk
   auto finish_unit = [&](std::int64_t i, const auto& value) {  // value(e): entry e of unit i
     loss_sums(i) = value(0);
     if (gradient) {
       grad_h(i) = value(1);
       for (std::int64_t j = 0; j < N_; ++j) grad(j, i) = value(2 + j);
     }
-    if (!SplitGrid::for_bound(bound(i), segments()).ok)  // parameters beyond the bounds' range
+    if (!SplitGrid::for_bound(bounds(i), segments()).ok)  // parameters beyond the bounds' range
       loss_sums(i) = std::numeric_limits<double>::infinity();
   };
   SingleThreadedBlas single;
   parallel_for(std::int64_t(todo.size()), threads_, [&](std::int64_t k) {
     const std::int64_t i0 = todo[std::size_t(k)] * chunk, nc = std::min(chunk, N_ - i0);
-    VectorXd bounds(nc);
-    for (std::int64_t c = 0; c < nc; ++c) bounds(c) = bound(i0 + c);
+    for (std::int64_t c = 0; c < nc; ++c) bounds(i0 + c) = bound(i0 + c);
     MatrixXd L0 = MatrixXd::Zero(rows, nc), L1 = L0, L2 = L0;
-    evaluate_chunk(loss, theta, h, gradient, i0, nc, bounds, L0, L1, L2);
+    evaluate_chunk(loss, theta, h, gradient, i0, nc, bounds.segment(i0, nc), L0, L1, L2);
     if (team_) {
       const std::size_t at = std::size_t(k * rows * chunk);
       Eigen::Map<MatrixXd>(levels.data() + at, rows, nc) = L0;

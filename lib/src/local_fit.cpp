@@ -475,23 +475,29 @@ LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& s,
   const auto t0 = std::chrono::steady_clock::now();
   auto last_save = t0;
   bool interrupted = false;
+  // The progress callback's verdict (false: stop) and whether a periodic save is due.
+  auto progress_continues = [&](std::int64_t round, double objective) {
+    if (!s.progress) return true;
+    Progress p;
+    p.stage = s.stage;
+    p.done = round;
+    p.total = s.max_iterations;
+    p.objective = objective;
+    p.elapsed_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    return s.progress(p);
+  };
+  auto save_due = [&] {
+    return save_state && std::chrono::duration<double>(std::chrono::steady_clock::now() - last_save).count() >=
+                             s.checkpoint_every_s;
+  };
   auto after_round = [&](std::int64_t round, double objective) {
-    const auto now = std::chrono::steady_clock::now();
-    if (s.progress) {
-      Progress p;
-      p.stage = s.stage;
-      p.done = round;
-      p.total = s.max_iterations;
-      p.objective = objective;
-      p.elapsed_s = std::chrono::duration<double>(now - t0).count();
-      if (!s.progress(p)) {
-        interrupted = true;
-        return false;
-      }
+    if (!progress_continues(round, objective)) {
+      interrupted = true;
+      return false;
     }
-    if (save_state && std::chrono::duration<double>(now - last_save).count() >= s.checkpoint_every_s) {
+    if (save_due()) {
       save_state(minimiser.to_json());
-      last_save = now;
+      last_save = std::chrono::steady_clock::now();
     }
     return true;
   };
@@ -502,19 +508,7 @@ LocalFitResult fit_local(const LocalFields& fields, const LocalFitSettings& s,
   auto meet = [&](bool running, double objective) {
     ++rounds_met;
     const RankTurn turn = meet_after_round(*unit_team, running, objective, [&](double total) {
-      const auto now = std::chrono::steady_clock::now();
-      bool stop = false;
-      if (s.progress) {
-        Progress p;
-        p.stage = s.stage;
-        p.done = rounds_met;
-        p.total = s.max_iterations;
-        p.objective = total;
-        p.elapsed_s = std::chrono::duration<double>(now - t0).count();
-        stop = !s.progress(p);
-      }
-      const bool save = save_state && std::chrono::duration<double>(now - last_save).count() >= s.checkpoint_every_s;
-      return std::make_pair(stop, save);
+      return std::make_pair(!progress_continues(rounds_met, total), save_due());
     });
     others_running = turn.anyone_running;
     if (turn.save && save_state) {
@@ -824,21 +818,12 @@ IsingModel fit_units_on_team(const SpinMatrix& data, const LocalFitRequest& req)
   PreparedData prepared(data, req.representation, req.threads);
   const FinalFit ff = prepare_final_fit(data, req, prepared);
   LocalFields mine(prepared, req.threads, nullptr);  // this rank alone, all rows
-  const auto [begin, end] = team.my_share(data.cols());
-  std::vector<std::int64_t> units;
-  for (std::int64_t i = begin; i < end; ++i) units.push_back(i);
+  const std::vector<std::int64_t> units = shard_units(data.cols(), team.rank(), team.size());
   const LocalFitResult r = run_final_fit(ff, req, mine, &units, &team);
-  const std::string text = unit_fits_to_json(unit_fits_of(data, req, ff, prepared, r, units)).dump() + "\n";
-  const std::vector<std::uint8_t> bytes = team.all_gather(std::vector<std::uint8_t>(text.begin(), text.end()));
   std::vector<UnitFits> parts;
-  std::size_t from = 0;
-  for (std::size_t k = 0; k < bytes.size(); ++k) {
-    if (bytes[k] != '\n') continue;
-    parts.push_back(unit_fits_from_json(
-        nlohmann::json::parse(bytes.begin() + std::ptrdiff_t(from), bytes.begin() + std::ptrdiff_t(k)),
-        "rank " + std::to_string(parts.size())));
-    from = k + 1;
-  }
+  for (const nlohmann::json& part :
+       gather_json(team, unit_fits_to_json(unit_fits_of(data, req, ff, prepared, r, units)), true))
+    parts.push_back(unit_fits_from_json(part, "rank " + std::to_string(parts.size())));
   IsingModel m = assemble_unit_fits(parts, Convention::spin);
   m.provenance.extra.erase("parts");
   m.provenance.extra["unit_ranks"] = team.size();

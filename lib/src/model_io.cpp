@@ -188,12 +188,10 @@ bool couplings_in_sibling(Eigen::Index units, CouplingsStorage storage) {
 }
 
 std::string couplings_sibling_path(const std::string& model_path) {
-  const std::filesystem::path p(model_path);
-  std::string name = p.filename().string();
-  const std::string ext = ".json";
-  if (name.size() > ext.size() && name.compare(name.size() - ext.size(), ext.size(), ext) == 0)
-    name.resize(name.size() - ext.size());
-  return (p.parent_path() / (name + ".couplings.npy")).string();
+  std::filesystem::path p(model_path);  // "run.json" -> "run.couplings.npy"; else append
+  if (p.extension() == ".json") p.replace_extension(".couplings.npy");
+  else p += ".couplings.npy";
+  return p.string();
 }
 
 namespace {
@@ -380,36 +378,34 @@ std::string indented_provenance(const nlohmann::json& provenance) {
   return indented;
 }
 
-// Our own layout: one key per line, one coupling row per line (dump(2) would put every number
-// on its own line). `couplings` writes the value of the "couplings" key.
-void write_model_json(std::ostream& out, const nlohmann::json& j,
-                      const std::function<void(std::ostream&)>& couplings) {
+// Our own layout: one key per line, inline couplings one row per line (dump(2) would put every
+// number on its own line); a sibling-file reference (an object) on one line.
+void write_model_json(std::ostream& out, const nlohmann::json& j) {
   out << "{\n";
   for (const char* k : {"format", "format_version", "convention", "energy", "names", "fields"})
     out << "  \"" << k << "\": " << j[k].dump() << ",\n";
+  const nlohmann::json& c = j["couplings"];
   out << "  \"couplings\": ";
-  couplings(out);
+  if (c.is_array()) {
+    out << "[\n";
+    for (std::size_t i = 0; i < c.size(); ++i) out << "    " << c[i].dump() << (i + 1 < c.size() ? ",\n" : "\n");
+    out << "  ]";
+  } else {
+    out << c.dump();
+  }
   out << ",\n  \"provenance\": " << indented_provenance(j["provenance"]) << "\n}\n";
 }
 
 }  // namespace
 
 void save_model(const std::string& path, const IsingModel& model, CouplingsStorage storage) {
-  validate_model(model, "model");
   const Eigen::Index N = model.size();
   if (!couplings_in_sibling(N, storage)) {
-    const nlohmann::json j = model_to_json(model);
-    write_file_atomically(path, [&](std::ostream& out) {
-      write_model_json(out, j, [&](std::ostream& o) {
-        const auto& c = j["couplings"];
-        o << "[\n";
-        for (std::size_t i = 0; i < c.size(); ++i)
-          o << "    " << c[i].dump() << (i + 1 < c.size() ? ",\n" : "\n");
-        o << "  ]";
-      });
-    });
+    const nlohmann::json j = model_to_json(model);  // validates the model
+    write_file_atomically(path, [&](std::ostream& out) { write_model_json(out, j); });
     return;
   }
+  validate_model(model, "model");
   // Eigen stores columns contiguously: the .npy is Fortran-ordered (numpy reads the same matrix)
   // and written straight from the model's memory.
   const std::string npy_path = couplings_sibling_path(path);
@@ -418,20 +414,17 @@ void save_model(const std::string& path, const IsingModel& model, CouplingsStora
   const std::size_t data_bytes = std::size_t(N) * std::size_t(N) * sizeof(double);
   const std::uint64_t hash = fnv1a64(data, data_bytes, fnv1a64(preamble.data(), preamble.size()));
   nlohmann::json j = header_json(model, kSiblingFormatVersion);
-  const nlohmann::json reference = {
-      {"npy", std::filesystem::path(npy_path).filename().string()},
-      {"shape", {N, N}},
-      {"dtype", "float64"},
-      {"fnv1a64", fnv1a64_hex(hash)}};
+  j["couplings"] = {{"npy", std::filesystem::path(npy_path).filename().string()},
+                    {"shape", {N, N}},
+                    {"dtype", "float64"},
+                    {"fnv1a64", fnv1a64_hex(hash)}};
   write_files_atomically(
       {{npy_path,
         [&](std::ostream& out) {
           out.write(preamble.data(), std::streamsize(preamble.size()));
           out.write(data, std::streamsize(data_bytes));
         }},
-       {path, [&](std::ostream& out) {
-          write_model_json(out, j, [&](std::ostream& o) { o << reference.dump(); });
-        }}});
+       {path, [&](std::ostream& out) { write_model_json(out, j); }}});
 }
 
 IsingModel load_model(const std::string& path) {

@@ -28,21 +28,28 @@ RankTurn meet_after_round(const Team& team, bool running, double objective, cons
   return turn;
 }
 
-nlohmann::json gather_unit_states(const Team& team, const nlohmann::json& mine) {
-  // One line of JSON per rank (dump() escapes newlines inside strings).
-  const std::string text = mine.dump() + "\n";
+std::vector<nlohmann::json> gather_json(const Team& team, const nlohmann::json& mine, bool all) {
+  const std::string text = mine.dump() + "\n";  // dump() escapes newlines inside strings
   const std::vector<std::uint8_t> bytes =
-      team.gather(std::vector<std::uint8_t>(text.begin(), text.end()));
+      team.gather_bytes(reinterpret_cast<const std::uint8_t*>(text.data()), text.size(), all);
+  std::vector<nlohmann::json> values;
+  std::size_t begin = 0;
+  for (std::size_t k = 0; k < bytes.size(); ++k) {
+    if (bytes[k] != '\n') continue;
+    values.push_back(nlohmann::json::parse(bytes.begin() + std::ptrdiff_t(begin),
+                                           bytes.begin() + std::ptrdiff_t(k)));
+    begin = k + 1;
+  }
+  return values;
+}
+
+nlohmann::json gather_unit_states(const Team& team, const nlohmann::json& mine) {
+  const std::vector<nlohmann::json> parts = gather_json(team, mine, false);
   if (!team.root()) return nullptr;
   nlohmann::json all = {{"rounds", std::int64_t(0)},
                         {"evaluations", std::int64_t(0)},
                         {"problems", nlohmann::json::array()}};
-  std::size_t begin = 0;
-  for (std::size_t k = 0; k < bytes.size(); ++k) {
-    if (bytes[k] != '\n') continue;
-    const nlohmann::json part = nlohmann::json::parse(bytes.begin() + std::ptrdiff_t(begin),
-                                                      bytes.begin() + std::ptrdiff_t(k));
-    begin = k + 1;
+  for (const nlohmann::json& part : parts) {
     all["rounds"] = std::max(all["rounds"].get<std::int64_t>(), part.at("rounds").get<std::int64_t>());
     all["evaluations"] = all["evaluations"].get<std::int64_t>() + part.at("evaluations").get<std::int64_t>();
     for (const auto& problem : part.at("problems")) all["problems"].push_back(problem);

@@ -18,6 +18,7 @@
 #include <cstdint>
 #include <functional>
 #include <utility>
+#include <vector>
 
 #include <nlohmann/json.hpp>
 
@@ -39,6 +40,10 @@ using RootDecision = std::function<std::pair<bool, bool>(double objective)>;
 /// One meeting of all ranks: `running` says whether this rank still has running units,
 /// `objective` is the sum over its units. `decide` is called on rank 0 only.
 RankTurn meet_after_round(const Team& team, bool running, double objective, const RootDecision& decide);
+
+/// Every rank's JSON value in rank order: on every rank when `all`, else on rank 0 only (the
+/// other ranks receive an empty vector). Values travel as one line of JSON text each.
+std::vector<nlohmann::json> gather_json(const Team& team, const nlohmann::json& mine, bool all);
 
 /// The optimiser states of all ranks (each a LockstepMinimiser::to_json of its share, in rank
 /// order) as one state of all units, on rank 0; the other ranks receive null.

@@ -982,12 +982,8 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
       for (std::int64_t k = 0; k < N; ++k) st.active[std::size_t(c * N + k)] = v[std::size_t(k)] != lo;
     }
   }
-  d.lock_step_groups = std::int64_t(groups.size());
-  if (team) {
-    double n = double(groups.size());
-    team->sum(&n, 1);
-    d.lock_step_groups = std::int64_t(n);
-  }
+  d.lock_step_groups = team ? std::int64_t(team->sum_value(double(groups.size())))
+                            : std::int64_t(groups.size());
   d.seconds = driver.elapsed();
   for (const auto& ch : chains) d.updates += double(ch.steps) * double(N) * double(K);
   return res;

@@ -4,24 +4,19 @@
 
 #include <filesystem>
 #include <fstream>
-#include <random>
 #include <sstream>
 #include <stdexcept>
 
 #include "spinfer/atomic_file.hpp"
 #include "spinfer/errors.hpp"
+#include "temp_dir.hpp"
 
 using namespace spinfer;
 namespace fs = std::filesystem;
 
 namespace {
 
-fs::path temp_dir() {
-  std::random_device rd;
-  fs::path d = fs::temp_directory_path() / ("spinfer-atomic-" + std::to_string(rd()));
-  fs::create_directories(d);
-  return d;
-}
+fs::path temp_dir() { return spinfer::testing::temp_dir("atomic"); }
 
 std::string slurp(const fs::path& p) {
   std::ifstream in(p, std::ios::binary);

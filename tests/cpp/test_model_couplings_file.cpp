@@ -10,6 +10,7 @@
 
 #include "spinfer/checksum.hpp"
 #include "spinfer/errors.hpp"
+#include "temp_dir.hpp"
 #include "spinfer/model_io.hpp"
 #include "spinfer/npy.hpp"
 
@@ -18,12 +19,7 @@ namespace fs = std::filesystem;
 
 namespace {
 
-fs::path temp_dir() {
-  std::random_device rd;
-  fs::path d = fs::temp_directory_path() / ("spinfer-couplings-file-" + std::to_string(rd()));
-  fs::create_directories(d);
-  return d;
-}
+fs::path temp_dir() { return spinfer::testing::temp_dir("couplings-file"); }
 
 IsingModel random_model(int N, std::uint64_t seed) {
   std::mt19937_64 rng(seed);

@@ -11,6 +11,7 @@
 #include <random>
 
 #include "spinfer/errors.hpp"
+#include "temp_dir.hpp"
 #include "spinfer/model_io.hpp"
 
 using namespace spinfer;
@@ -18,12 +19,7 @@ namespace fs = std::filesystem;
 
 namespace {
 
-fs::path temp_dir() {
-  std::random_device rd;
-  fs::path d = fs::temp_directory_path() / ("spinfer-model-io-" + std::to_string(rd()));
-  fs::create_directories(d);
-  return d;
-}
+fs::path temp_dir() { return spinfer::testing::temp_dir("model-io"); }
 
 IsingModel awkward_model() {
   std::mt19937_64 rng(99);

@@ -13,10 +13,19 @@ import spinfer
 
 
 def fnv1a64(data: bytes) -> str:
+    """FNV-1a 64 (Fowler, Noll, Vo): offset basis cbf29ce484222325, prime 100000001b3."""
     h = 0xCBF29CE484222325
     for byte in data:
         h = ((h ^ byte) * 0x100000001B3) & 0xFFFFFFFFFFFFFFFF
     return f"{h:016x}"
+
+
+def test_the_reference_hash_matches_the_published_vectors():
+    # The FNV test suite of the algorithm's authors: "" -> cbf29ce484222325, "a" ->
+    # af63dc4c8601ec8c, "foobar" -> 85944171f73967e8 (also checked in tests/cpp/test_checksum.cpp).
+    assert fnv1a64(b"") == "cbf29ce484222325"
+    assert fnv1a64(b"a") == "af63dc4c8601ec8c"
+    assert fnv1a64(b"foobar") == "85944171f73967e8"
 
 
 def run(cli, *args):
