@@ -7,12 +7,14 @@
 #include <cmath>
 #include <functional>
 #include <limits>
+#include <memory>
 #include <sstream>
 #include <stdexcept>
 #include <tuple>
 
 #include "sampler_engine.hpp"
 #include "sampler_groups.hpp"
+#include "sampler_uniform_groups.hpp"
 #include "sampler_kernels.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/rng.hpp"
@@ -96,9 +98,9 @@ struct Replica {
   mutable bool stale = false;
   std::vector<double> H;  // local fields h_i + sum_j J_ij v_j
   std::vector<std::int32_t> small;  // uniform couplings: v by scan position, then a 0 (padding)
-  // Uniform couplings in a lock-step group: the values live at packed[position * kGroupWidth +
-  // lane] (the group's storage) instead of `small`.
-  std::int8_t* packed = nullptr;
+  // Uniform couplings in a lock-step group: the values live at packed[position].v[lane] (the
+  // group's storage) instead of `small`.
+  UniformLine* packed = nullptr;
   std::int64_t lane = 0;
   double E = 0;
 };
@@ -110,22 +112,35 @@ struct Chain {
   std::vector<std::int64_t> slot_flips, slot_updates, swap_tries, swap_accepts;
   std::int64_t steps = 0;
   // A sweep's (or one colour's) random bits and their generators, seeded from `rng`; uniform
-  // couplings: per ladder slot the integer thresholds by neighbour sum (Engine::sweep_uniform).
+  // couplings: per ladder slot the integer thresholds by neighbour sum, split into the parts of
+  // the 16-bit draw, the draw's pieces and the tie stream (Engine::sweep_uniform,
+  // sampler_kernels.hpp).
   std::vector<std::uint64_t> draws;
   Lanes lanes{};
   std::vector<std::uint64_t> level_thresholds;
-  std::vector<std::uint32_t> threshold_high, threshold_low, words;  // the same, in 32-bit lanes
+  std::vector<std::uint32_t> threshold_high;
+  std::vector<std::uint64_t> threshold_low;
+  std::vector<std::uint16_t> pieces;
+  std::uint64_t tie[4] = {};
 };
 
-/// Up to kGroupWidth chains advanced in lock-step (sampler_groups.hpp): single-temperature runs
-/// with the sequential or coloured scan. The group owns its chains' generators from its creation
-/// on (the chains' own `lanes` are no longer used) and, for uniform couplings, their values.
+/// Chains advanced in lock-step: single-temperature runs with the sequential or coloured scan;
+/// up to kGroupWidth chains (sampler_groups.hpp), or kUniformWidth for uniform couplings
+/// (sampler_uniform_groups.hpp). The group owns its chains' generators from its creation on (the
+/// chains' own `lanes` and tie streams are no longer used) and, for uniform couplings, their
+/// values.
 struct Group {
   std::vector<std::size_t> members;   // chain indices; member m runs in lane m
   GroupLanes lanes{};
   std::vector<std::uint64_t> draws;   // kGroupChunk x kGroupWidth scratch
-  std::vector<std::int8_t> packed;    // uniform couplings: [N + 1][kGroupWidth]
   std::vector<double> spare;          // other models: N readable doubles for empty lanes
+  // Uniform couplings: the members' generators and tie streams, values [N + 1] by position
+  // (member m in byte lane uniform_lane(m)) and the kernel's scratch.
+  std::unique_ptr<UniformLanes> wide;
+  std::vector<std::array<std::uint64_t, 4>> ties;
+  std::vector<UniformLine> packed;
+  std::vector<UniformWords> words;
+  std::vector<std::uint16_t> pieces;
 };
 
 class Engine {
@@ -233,7 +248,10 @@ class Engine {
     if (uniform_) {
       c.level_thresholds = level_thresholds();
       split_thresholds(c.level_thresholds, &c.threshold_high, &c.threshold_low);
-      c.words.assign(std::size_t(2 * (N_ + Lanes::kWidth)), 0);
+      c.pieces.assign(std::size_t(N_), 0);
+      // The tie stream: splitmix64 of one output, so its four words are never all zero.
+      std::uint64_t x = c.rng.next();
+      for (auto& word : c.tie) word = splitmix64(x);
     }
     c.slot_flips.assign(K, 0);
     c.slot_updates.assign(K, 0);
@@ -271,7 +289,7 @@ class Engine {
     if (r.stale) {
       if (r.packed) {
         for (std::int64_t i = 0; i < N_; ++i)
-          r.v[std::size_t(order_[std::size_t(i)])] = double(r.packed[i * kGroupWidth + r.lane]);
+          r.v[std::size_t(order_[std::size_t(i)])] = double(r.packed[i].v[r.lane]);
       } else {
         for (std::int64_t i = 0; i < N_; ++i)
           r.v[std::size_t(order_[std::size_t(i)])] = double(r.small[std::size_t(i)]);
@@ -298,34 +316,98 @@ class Engine {
   bool lock_step() const { return slots() == 1 && !random_scan_; }
 
   /// Smallest group worth forming (measured on dense N = 200 and a 64 x 64 lattice): a group's
-  /// step costs about the same with one chain as with eight, and the uniform coloured kernel
-  /// already runs one chain as vectors over the sites; smaller groups run their chains alone.
-  std::int64_t min_group() const { return uniform_ && coloured_ ? 7 : 3; }
+  /// step costs about the same with one chain as with a full group, and the uniform coloured
+  /// kernel already runs one chain as vectors over the sites; smaller groups run their chains
+  /// alone.
+  std::int64_t min_group() const { return uniform_ ? (coloured_ ? 3 : 3) : 3; }
+
+  /// Most chains in one group.
+  std::int64_t group_width() const { return uniform_ ? kUniformWidth : kGroupWidth; }
+  bool uniform() const { return uniform_; }
 
   /// Takes the chains chains[members] into a group: their generators and (uniform couplings)
   /// values move into the group's storage; each chain's bits continue unchanged.
   void form_group(Group& g, std::vector<Chain>& chains) const {
-    const auto W = std::size_t(kGroupWidth);
-    g.draws.assign(std::size_t(kGroupChunk) * W, 0);
-    for (std::size_t m = 0; m < g.members.size(); ++m) {
-      const Chain& c = chains[g.members[m]];
-      for (std::size_t w = 0; w < 4; ++w)
-        for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.lanes.s[w][l][m] = c.lanes.s[w][l];
-    }
     if (uniform_) {
-      g.packed.assign(std::size_t(N_ + 1) * W, std::int8_t(lo_));
-      std::fill(g.packed.end() - std::ptrdiff_t(W), g.packed.end(), std::int8_t(0));
+      g.wide = std::make_unique<UniformLanes>();
+      g.ties.assign(std::size_t(kUniformWidth), {0, 0, 0, 0});
+      UniformLine fill{};
+      std::fill(std::begin(fill.v), std::end(fill.v), std::int8_t(lo_));
+      g.packed.assign(std::size_t(N_ + 1), fill);
+      g.packed.back() = UniformLine{};
+      g.words.assign(std::size_t(kUniformChunk / 4), UniformWords{});
+      g.pieces.assign(std::size_t(kUniformChunk * kUniformWidth), 0);
       for (std::size_t m = 0; m < g.members.size(); ++m) {
-        Replica& r = chains[g.members[m]].replicas[0];
+        Chain& c = chains[g.members[m]];
+        for (std::size_t w = 0; w < 4; ++w) {
+          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.wide->s[w][l][m] = c.lanes.s[w][l];
+          g.ties[m][w] = c.tie[w];
+        }
+        Replica& r = c.replicas[0];
         values(r);
         r.packed = g.packed.data();
-        r.lane = std::int64_t(m);
+        r.lane = uniform_lane(std::int64_t(m));
         for (std::int64_t i = 0; i < N_; ++i)
-          r.packed[i * kGroupWidth + r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
+          r.packed[i].v[r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
         r.small.clear();
       }
     } else {
+      const auto W = std::size_t(kGroupWidth);
+      g.draws.assign(std::size_t(kGroupChunk) * W, 0);
+      for (std::size_t m = 0; m < g.members.size(); ++m) {
+        const Chain& c = chains[g.members[m]];
+        for (std::size_t w = 0; w < 4; ++w)
+          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.lanes.s[w][l][m] = c.lanes.s[w][l];
+      }
       g.spare.assign(std::size_t(N_), 0.0);
+    }
+  }
+
+  /// One step of a uniform-coupling group's chains in `active` (bit m: member m): what step()
+  /// does for each.
+  void step_uniform_group(Group& g, std::vector<Chain>& chains, std::uint64_t active) const {
+    const std::size_t n = g.members.size();
+    const std::uint64_t all = n == 64 ? ~std::uint64_t(0) : (std::uint64_t(1) << n) - 1;
+    // Chains that sit this step out keep their generators (the kernel steps them with the others).
+    std::vector<std::uint64_t> saved;
+    for (std::size_t m = 0; m < n && active != all; ++m)
+      if (!(active >> m & 1))
+        for (std::size_t w = 0; w < 4; ++w)
+          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) saved.push_back(g.wide->s[w][l][m]);
+    GroupUniform a;
+    a.x = g.packed.data();
+    a.nb = nb_.data();
+    a.stride = N_;
+    a.degree = dmax_;
+    a.colour_start = colour_start_.data();
+    a.colours = std::int64_t(colour_start_.size()) - 1;
+    const Chain& first = chains[g.members[0]];
+    a.high = first.threshold_high.data();
+    a.low = first.threshold_low.data();
+    a.lo = std::int8_t(lo_);
+    a.hi = std::int8_t(hi_);
+    a.gibbs = gibbs_;
+    a.active = active;
+    a.members = std::int64_t(n);
+    a.lanes = g.wide.get();
+    a.ties = reinterpret_cast<std::uint64_t(*)[4]>(g.ties.data());
+    a.words = g.words.data();
+    a.pieces = g.pieces.data();
+    group_uniform_sweep(a);
+    std::size_t at = 0;
+    for (std::size_t m = 0; m < n; ++m) {
+      Chain& c = chains[g.members[m]];
+      if (!(active >> m & 1)) {
+        for (std::size_t w = 0; w < 4; ++w)
+          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.wide->s[w][l][m] = saved[at++];
+        continue;
+      }
+      Replica& r = c.replicas[0];
+      r.stale = true;
+      r.E -= h0_ * double(a.dv[m]) + K_ * double(a.dv_S[m]);
+      c.slot_flips[0] += a.flips[m];
+      c.slot_updates[0] += N_;
+      if (++c.steps % 1024 == 0) refresh(r);
     }
   }
 
@@ -336,30 +418,7 @@ class Engine {
     GroupLanes saved;
     if (active != all) saved = g.lanes;  // chains that sit this step out keep their generators
     std::int64_t flips[kGroupWidth] = {};
-    if (uniform_) {
-      GroupUniform a;
-      a.x = g.packed.data();
-      a.nb = nb_.data();
-      a.stride = N_;
-      a.degree = dmax_;
-      a.colour_start = colour_start_.data();
-      a.colours = std::int64_t(colour_start_.size()) - 1;
-      a.table = chains[g.members[0]].level_thresholds.data();
-      a.lo = std::int8_t(lo_);
-      a.hi = std::int8_t(hi_);
-      a.gibbs = gibbs_;
-      a.active = active;
-      a.lanes = &g.lanes;
-      a.draws = g.draws.data();
-      group_uniform_sweep(a);
-      for (std::size_t m = 0; m < n; ++m) {
-        if (!(active >> m & 1)) continue;
-        Replica& r = chains[g.members[m]].replicas[0];
-        r.stale = true;
-        r.E -= h0_ * double(a.dv[m]) + K_ * double(a.dv_S[m]);
-        flips[m] = a.flips[m];
-      }
-    } else {
+    {
       GroupGeneral a;
       for (std::size_t m = 0; m < std::size_t(kGroupWidth); ++m) {
         Replica* r = m < n ? &chains[g.members[m]].replicas[0] : nullptr;
@@ -408,7 +467,7 @@ class Engine {
     values(r);
     if (uniform_ && r.packed) {
       for (std::int64_t i = 0; i < N_; ++i)
-        r.packed[i * kGroupWidth + r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
+        r.packed[i].v[r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
     } else if (uniform_) {
       r.small.assign(std::size_t(N_ + 1), 0);
       for (std::int64_t i = 0; i < N_; ++i) r.small[std::size_t(i)] = std::int32_t(r.v[std::size_t(order_[std::size_t(i)])]);
@@ -468,20 +527,22 @@ class Engine {
       a.nb = nb_.data();
       a.stride = N_;
       a.degree = dmax_;
-      a.words = c.words.data();
+      a.pieces = c.pieces.data();
       a.th = c.threshold_high.data() + at;
       a.tl = c.threshold_low.data() + at;
+      a.tie = c.tie;
       a.lo = std::int32_t(lo_);
       a.hi = std::int32_t(hi_);
       a.gibbs = kGibbs;
       for (std::size_t col = 0; col + 1 < colour_start_.size(); ++col) {
         a.begin = colour_start_[col];
         a.end = colour_start_[col + 1];
-        draw_lanes(c.lanes, c.words.data(), a.end - a.begin);
+        draw_lanes(c.lanes, c.draws.data(), (a.end - a.begin + 3) / 4);
+        split_pieces(c.draws.data(), c.pieces.data(), a.end - a.begin);
         update_uniform_colour(a, sums);
       }
     } else {
-      sequential_uniform<kGibbs>(r.small.data(), c.level_thresholds.data() + at, c, sums);
+      sequential_uniform<kGibbs>(r.small.data(), at, c, sums);
     }
     r.stale = true;
     r.E -= h0_ * double(sums.dv) + K_ * double(sums.dv_S);
@@ -489,26 +550,25 @@ class Engine {
   }
 
   /// The sequential scan's uniform kernel: positions are units; each update sees the previous.
+  /// Update i takes the 16 bits i % 4 of word i / 4 of the sweep's batch (uniform_pass).
   template <bool kGibbs>
-  void sequential_uniform(std::int32_t* __restrict x, const std::uint64_t* __restrict table, Chain& c,
-                          UniformSums& sums) const {
+  void sequential_uniform(std::int32_t* __restrict x, std::size_t at, Chain& c, UniformSums& sums) const {
     const std::int32_t* __restrict nb = nb_.data();
     const std::uint64_t* __restrict m = c.draws.data();
+    const std::uint32_t* __restrict high = c.threshold_high.data() + at;
+    const std::uint64_t* __restrict low = c.threshold_low.data() + at;
     const std::int64_t levels = 2 * dmax_ + 1, d = dmax_, n = N_;
     const std::int64_t lo = std::int64_t(lo_), hi = std::int64_t(hi_), both = lo + hi;
-    draw_lanes(c.lanes, c.draws.data(), n);
+    draw_lanes(c.lanes, c.draws.data(), (n + 3) / 4);
     std::int64_t flips = 0, sum_dv = 0, sum_dv_S = 0;
     for (std::int64_t i = 0; i < n; ++i) {
       std::int64_t S = 0;
       for (std::int64_t j = 0; j < d; ++j) S += x[nb[j * n + i]];
       const std::int64_t old = x[i];
-      std::int64_t next;
-      if constexpr (kGibbs) {
-        next = lo + std::int64_t((m[i] >> 11) < table[S + d]) * (hi - lo);
-      } else {
-        const std::int64_t row = levels * std::int64_t(old == hi);
-        next = old + std::int64_t((m[i] >> 11) < table[row + S + d]) * (both - 2 * old);
-      }
+      const std::int64_t level = (kGibbs ? 0 : levels * std::int64_t(old == hi)) + S + d;
+      const auto bits = std::uint32_t(m[i >> 2] >> (16 * (i & 3))) & 0xffff;
+      const std::int64_t pass = uniform_pass(bits, high[level], low[level], c.tie);
+      const std::int64_t next = kGibbs ? lo + pass * (hi - lo) : old + pass * (both - 2 * old);
       const std::int64_t dv = next - old;
       x[i] = std::int32_t(next);
       sum_dv += dv;
@@ -620,11 +680,14 @@ class Driver {
         parallel_for(std::int64_t(groups_.size()), threads_, [&](std::int64_t gi) {
           Group& g = groups_[std::size_t(gi)];
           for (std::int64_t i = begin; i < end; ++i) {
-            unsigned active = 0;
+            std::uint64_t active = 0;
             for (std::size_t m = 0; m < g.members.size(); ++m)
-              if (steps[g.members[m]] > i) active |= 1u << m;
+              if (steps[g.members[m]] > i) active |= std::uint64_t(1) << m;
             if (!active) break;
-            engine_.step_group(g, chains_, active);
+            if (engine_.uniform())
+              engine_.step_uniform_group(g, chains_, active);
+            else
+              engine_.step_group(g, chains_, unsigned(active));
             for (std::size_t m = 0; m < g.members.size(); ++m)
               if (active >> m & 1) after(g.members[m], i);
           }
@@ -784,11 +847,12 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     for (std::int64_t c = 0; c < C; ++c)
       for (auto& rep : chains[std::size_t(c)].replicas) engine.load(rep, st.active.data() + c * N);
   }
-  // Lock-step groups: at least one per thread when there are enough chains, at most kGroupWidth
-  // chains each, sizes as equal as possible. Grouping never changes a chain's samples.
+  // Lock-step groups: at least one per thread when there are enough chains, at most
+  // engine.group_width() chains each, sizes as equal as possible. Grouping never changes a
+  // chain's samples.
   std::vector<Group> groups;
   if (rq.lock_step && engine.lock_step() && nL > 0) {
-    const auto count = std::int64_t(nL), width = kGroupWidth;
+    const auto count = std::int64_t(nL), width = engine.group_width();
     const std::int64_t n_groups = std::max((count + width - 1) / width,
                                            std::min<std::int64_t>(resolve_threads(o.threads), count));
     if (count / n_groups >= engine.min_group()) {

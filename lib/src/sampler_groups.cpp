@@ -1,5 +1,7 @@
-// Picks the copy of the lock-step kernels (sampler_groups.inc) that the CPU runs.
+// Picks the copy of the lock-step kernels (sampler_groups.inc, sampler_uniform_groups.inc) that
+// the CPU runs.
 #include "sampler_groups.hpp"
+#include "sampler_uniform_groups.hpp"
 
 #include <atomic>
 #include <cstring>

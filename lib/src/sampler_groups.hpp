@@ -14,9 +14,8 @@
 //   held [state word][generator][chain], so stepping generator l of all chains is one vector
 //   operation and a batch comes out as draws[position][chain]: draw 8t + l of chain c is the
 //   t-th output of its generator l, exactly what draw_lanes gives that chain alone.
-// * Uniform couplings (lattices): values as int8 by [scan position][chain], position N holding
-//   zeros (the padding of short neighbour rows), so a neighbour's values for all chains are one
-//   8-byte load.
+// * Uniform couplings (lattices) have their own groups of up to 64 chains
+//   (sampler_uniform_groups.hpp).
 // * Other models: fields and values stay in each chain's own arrays (a flipped chain updates
 //   its whole field vector, N contiguous doubles, as alone; an interleaved layout would touch all
 //   chains' fields on every flip); only the decision runs across the chains.
@@ -40,25 +39,6 @@ struct GroupLanes {
   std::uint64_t s[4][Lanes::kWidth][kGroupWidth];  ///< [state word][generator][chain]
 };
 
-/// Uniform couplings (one coupling value, one field value), sequential or coloured scan: the
-/// arithmetic of Engine::sweep_uniform per chain.
-struct GroupUniform {
-  std::int8_t* x = nullptr;             ///< [N + 1][kGroupWidth] values by scan position
-  const std::int32_t* nb = nullptr;     ///< neighbour positions nb[j * stride + i], j < degree
-  std::int64_t stride = 0, degree = 0;
-  const std::int64_t* colour_start = nullptr;  ///< colours' first positions, then N
-  std::int64_t colours = 0;             ///< 1 for the sequential scan
-  const std::uint64_t* table = nullptr; ///< thresholds [row][S + degree] (row: old value is high,
-                                        ///< Metropolis only); m passes iff m < threshold
-  std::int8_t lo = 0, hi = 1;
-  bool gibbs = true;
-  unsigned active = 0;                  ///< lanes that update; the others keep their values
-  GroupLanes* lanes = nullptr;
-  std::uint64_t* draws = nullptr;       ///< scratch: kGroupChunk x kGroupWidth
-  /// Added to, per lane: sum of value changes, of change x neighbour sum, number of changes.
-  std::int64_t dv[kGroupWidth] = {}, dv_S[kGroupWidth] = {}, flips[kGroupWidth] = {};
-};
-
 /// Any other model, sequential or coloured scan: the arithmetic of Engine::sweep_t per chain.
 struct GroupGeneral {
   double* v[kGroupWidth] = {};          ///< each lane's values by unit (lanes outside `active`
@@ -80,10 +60,9 @@ struct GroupGeneral {
 };
 
 /// One sweep of the group (the lanes in `active`).
-void group_uniform_sweep(GroupUniform& a);
 void group_general_sweep(GroupGeneral& a);
 
-/// The copy group_*_sweep uses: "generic", "avx2" or "avx512" (the widest the CPU runs).
+/// The copy group_general_sweep and group_uniform_sweep (sampler_uniform_groups.hpp) use: "generic", "avx2" or "avx512" (the widest the CPU runs).
 const char* group_kernel_isa();
 /// Tests: use the named copy from now on (nullptr: the widest again); false when the CPU cannot
 /// run it (nothing changes then).

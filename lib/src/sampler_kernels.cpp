@@ -46,40 +46,66 @@ template <typename Word>
   std::memcpy(g.s[3], &s3, 64);
 }
 
+// The update of scan position i of a colour with the tie settled: the scalar path of the kernels
+// below (other degrees, and ties after a block's vector pass left them unchanged).
+[[gnu::always_inline]] inline void uniform_update(const UniformColour& a, std::int64_t i, UniformSums& sums) {
+  std::int64_t S = 0;
+  for (std::int64_t j = 0; j < a.degree; ++j) S += a.x[a.nb[j * a.stride + i]];
+  const std::int32_t old = a.x[i];
+  const std::int64_t levels = 2 * a.degree + 1;
+  const std::int64_t level = (a.gibbs ? 0 : levels * std::int64_t(old == a.hi)) + S + a.degree;
+  const bool pass = uniform_pass(a.pieces[i - a.begin], a.th[level], a.tl[level], a.tie);
+  const std::int32_t next = a.gibbs ? (pass ? a.hi : a.lo) : (pass ? a.lo + a.hi - old : old);
+  a.x[i] = next;
+  sums.dv += next - old;
+  sums.dv_S += (next - old) * S;
+  sums.flips += next != old;
+}
+
 // One colour of the uniform kernel. The positions of a colour are not coupled, so the iterations
 // are independent (ivdep): gathers of the neighbours' values, a branch-free 32-bit test, and
-// 32-bit sums over chunks short enough not to overflow (|dv S| <= 2 x 8 per update here).
+// 32-bit sums over blocks short enough not to overflow (|dv S| <= 2 x 8 per update here). A
+// position whose 16 bits tie with its threshold keeps its value in the vector pass; the block's
+// ties are then settled in position order (their tie-stream draws come in update order).
 template <bool kGibbs, int D>
 [[gnu::always_inline]] inline void colour_loop(const UniformColour& a, UniformSums& sums) {
   std::int32_t* __restrict x = a.x;
   const std::int32_t* __restrict nb = a.nb;
-  const std::uint32_t* __restrict w = a.words;
+  const std::uint16_t* __restrict p = a.pieces;
   const std::uint32_t* __restrict th = a.th;
-  const std::uint32_t* __restrict tl = a.tl;
   const std::int64_t stride = a.stride;
   const std::int32_t lo = a.lo, hi = a.hi, both = lo + hi, levels = 2 * D + 1;
-  for (std::int64_t begin = a.begin; begin < a.end; begin += std::int64_t(1) << 24) {
-    const std::int64_t end = std::min(a.end, begin + (std::int64_t(1) << 24));
-    std::int32_t dv_sum = 0, dvS_sum = 0, flip_sum = 0;
+  constexpr std::int64_t kBlock = 1024;
+  for (std::int64_t begin = a.begin; begin < a.end; begin += kBlock) {
+    const std::int64_t end = std::min(a.end, begin + kBlock);
+    std::int32_t dv_sum = 0, dvS_sum = 0, flip_sum = 0, ties = 0;
 #pragma GCC ivdep
     for (std::int64_t i = begin; i < end; ++i) {
       std::int32_t S = 0;
       for (int j = 0; j < D; ++j) S += x[nb[j * stride + i]];
       const std::int32_t old = x[i];
-      const std::int64_t t = i - a.begin;
-      const std::uint32_t high = w[2 * t + 1], low = w[2 * t] >> 11;
+      const std::uint32_t d = p[i - a.begin];
       const std::int32_t level = (kGibbs ? 0 : levels * std::int32_t(old == hi)) + S + D;
-      const std::int32_t pass = std::int32_t(high < th[level]) | (std::int32_t(high == th[level]) & std::int32_t(low < tl[level]));
-      const std::int32_t next = kGibbs ? lo + pass * (hi - lo) : old + pass * (both - 2 * old);
+      const std::int32_t pass = std::int32_t(d < th[level]), tie = std::int32_t(d == th[level]);
+      const std::int32_t next = tie ? old : kGibbs ? lo + pass * (hi - lo) : old + pass * (both - 2 * old);
       const std::int32_t dv = next - old;
       x[i] = next;
       dv_sum += dv;
       dvS_sum += dv * S;
       flip_sum += std::int32_t(dv != 0);
+      ties |= tie;
     }
     sums.dv += dv_sum;
     sums.dv_S += dvS_sum;
     sums.flips += flip_sum;
+    if (ties) {
+      for (std::int64_t i = begin; i < end; ++i) {
+        std::int32_t S = 0;
+        for (int j = 0; j < D; ++j) S += x[nb[j * stride + i]];
+        const std::int32_t level = (kGibbs ? 0 : levels * std::int32_t(x[i] == hi)) + S + D;
+        if (p[i - a.begin] == th[level]) uniform_update(a, i, sums);
+      }
+    }
   }
 }
 
@@ -107,32 +133,22 @@ SPINFER_WIDE_CLONES
 void update_uniform_colour(const UniformColour& a, UniformSums& sums) {
   if (a.gibbs ? colour_by_degree<true>(a, sums) : colour_by_degree<false>(a, sums)) return;
   // Other degrees: the same decisions, one position at a time.
-  const std::int64_t levels = 2 * a.degree + 1;
-  for (std::int64_t i = a.begin; i < a.end; ++i) {
-    std::int64_t S = 0;
-    for (std::int64_t j = 0; j < a.degree; ++j) S += a.x[a.nb[j * a.stride + i]];
-    const std::int32_t old = a.x[i];
-    const std::int64_t t = i - a.begin;
-    const std::uint32_t high = a.words[2 * t + 1], low = a.words[2 * t] >> 11;
-    const std::int64_t level = (a.gibbs ? 0 : levels * std::int64_t(old == a.hi)) + S + a.degree;
-    const bool pass = high < a.th[level] || (high == a.th[level] && low < a.tl[level]);
-    const std::int32_t next = a.gibbs ? (pass ? a.hi : a.lo) : (pass ? a.lo + a.hi - old : old);
-    a.x[i] = next;
-    sums.dv += next - old;
-    sums.dv_S += (next - old) * S;
-    sums.flips += next != old;
+  for (std::int64_t i = a.begin; i < a.end; ++i) uniform_update(a, i, sums);
+}
+
+void split_thresholds(const std::vector<std::uint64_t>& t, std::vector<std::uint32_t>* high,
+                      std::vector<std::uint64_t>* low) {
+  high->clear();
+  low->clear();
+  for (std::uint64_t T : t) {
+    const std::uint64_t h = std::min<std::uint64_t>(T >> 37, 0xffff);
+    high->push_back(std::uint32_t(h));
+    low->push_back(T - (h << 37));  // <= 2^37
   }
 }
 
-void split_thresholds(const std::vector<std::uint64_t>& t, std::vector<std::uint32_t>* th,
-                      std::vector<std::uint32_t>* tl) {
-  th->clear();
-  tl->clear();
-  for (std::uint64_t T : t) {
-    const std::uint64_t high = std::min<std::uint64_t>(T >> 21, 0xffffffffu);
-    th->push_back(std::uint32_t(high));
-    tl->push_back(std::uint32_t(T - (high << 21)));  // <= 2^21
-  }
+void split_pieces(const std::uint64_t* words, std::uint16_t* pieces, std::int64_t n) {
+  for (std::int64_t j = 0; j < n; ++j) pieces[j] = std::uint16_t(words[j >> 2] >> (16 * (j & 3)));
 }
 
 bool AcceptanceTable::exact_heat_bath(double x, std::uint64_t m) {

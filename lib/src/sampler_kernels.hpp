@@ -4,7 +4,7 @@
 // * Lanes / draw_lanes: eight xoshiro256** generators stepped together, so a sweep's random
 //   bits come in one vectorised batch.
 // * AcceptanceTable: the heat-bath and Metropolis tests without exp on almost every update.
-// * Integer thresholds for the uniform-coupling kernel.
+// * Integer thresholds and the 16-bit draw of the uniform-coupling kernels.
 // The wide kernels are built for AVX-512 and AVX2 as well as the baseline and chosen at load time
 // (GCC target_clones), so portable binaries still use wide vectors.
 #pragma once
@@ -100,22 +100,65 @@ std::uint64_t heat_bath_threshold(double x);
 /// Metropolis: accept iff y <= 0 or u < exp(-y).
 std::uint64_t metropolis_threshold(double y);
 
+// ---- the uniform-coupling draw: 16 bits per update, 37 more on a tie ------------------------------
+// The uniform-coupling kernels (Engine::sweep_uniform, update_uniform_colour and the lock-step
+// groups of sampler_uniform_groups.hpp) decide "m < T" for a 53-bit uniform m = d 2^37 + e with
+// d the update's 16 bits from the chain's main stream and e 37 bits from its tie stream. With
+// T = high 2^37 + low (high = min(T >> 37, 2^16 - 1), so low is in [0, 2^37]; T = 2^53 gives
+// high = 2^16 - 1, low = 2^37): d < high passes, d > high fails, and only d == high (probability
+// 2^-16) draws e and passes iff e < low. Every decision has exactly the probability T 2^-53 of
+// the 53-bit test, at a quarter of the main stream's bits.
+//
+// Main stream: the chain's eight generators (Lanes); a batch of n updates (a sweep for the
+// sequential scan, a colour for the coloured scan) takes ceil(n / 32) steps of them (draw_lanes:
+// word 8t + l is step t of generator l), and update j of the batch uses bits [16 (j % 4),
+// 16 (j % 4) + 16) of word j / 4; the rest of the last step is discarded.
+// Tie stream: one more xoshiro256** generator per chain (state words filled by splitmix64 from
+// one output of the chain's stream after the eight generators were seeded); each tie takes the
+// top 37 bits of its next output, in update order.
+
+/// Top 37 bits of the next output of the xoshiro256** generator with state s[0..3] (rng.hpp).
+inline std::uint64_t tie_bits(std::uint64_t* s) {
+  const std::uint64_t x = s[1] * 5;
+  const std::uint64_t result = ((x << 7) | (x >> 57)) * 9;
+  const std::uint64_t t = s[1] << 17;
+  s[2] ^= s[0];
+  s[3] ^= s[1];
+  s[1] ^= s[2];
+  s[0] ^= s[3];
+  s[2] ^= t;
+  s[3] = (s[3] << 45) | (s[3] >> 19);
+  return result >> 27;
+}
+
+/// The decision for the update's 16 bits d and the threshold's parts (high, low); draws from the
+/// tie stream `tie` only when d == high.
+inline bool uniform_pass(std::uint32_t d, std::uint32_t high, std::uint64_t low, std::uint64_t* tie) {
+  if (d != high) return d < high;
+  return tie_bits(tie) < low;
+}
+
+/// Splits 53-bit thresholds T (each <= 2^53) into their (high, low) parts.
+void split_thresholds(const std::vector<std::uint64_t>& t, std::vector<std::uint32_t>* high,
+                      std::vector<std::uint64_t>* low);
+
+/// The update's 16 bits, as above: pieces[j] = bits [16 (j % 4), 16 (j % 4) + 16) of words[j / 4].
+void split_pieces(const std::uint64_t* words, std::uint16_t* pieces, std::int64_t n);
+
 // ---- uniform couplings, one colour at a time ---------------------------------------------------
 // The state is held as int32 values by scan position (x[N] = 0 pads short neighbour rows); the
-// neighbour positions of scan position i are nb[j * stride + i], j < degree. A 53-bit draw m
-// passes level L iff m < T_L; with m = high 2^21 + low (high: the draw's top 32 bits, low: the
-// next 21) and T_L = th 2^21 + tl (th capped at 2^32 - 1, so tl <= 2^21), that is
-// high < th || (high == th && low < tl): the same decision in 32-bit lanes.
+// neighbour positions of scan position i are nb[j * stride + i], j < degree. Level L = S + degree
+// (+ 2 degree + 1 when the old value is high, Metropolis) picks the threshold parts.
 
 struct UniformColour {
   std::int32_t* x = nullptr;
   const std::int32_t* nb = nullptr;
   std::int64_t stride = 0, degree = 0;
-  std::int64_t begin = 0, end = 0;     ///< scan positions of the colour (units not coupled)
-  const std::uint32_t* words = nullptr;  ///< 2 words per update (low, high half of a draw),
-                                         ///< from the colour's first update
-  const std::uint32_t* th = nullptr;   ///< [row][S + degree]: row = old value is high (Metropolis)
-  const std::uint32_t* tl = nullptr;
+  std::int64_t begin = 0, end = 0;       ///< scan positions of the colour (units not coupled)
+  const std::uint16_t* pieces = nullptr; ///< 16 bits per update, from the colour's first update
+  const std::uint32_t* th = nullptr;     ///< threshold high parts [row][S + degree]
+  const std::uint64_t* tl = nullptr;     ///< threshold low parts
+  std::uint64_t* tie = nullptr;          ///< the chain's tie stream (4 state words)
   std::int32_t lo = 0, hi = 1;
   bool gibbs = true;
 };
@@ -124,11 +167,8 @@ struct UniformSums {
   std::int64_t dv = 0, dv_S = 0, flips = 0;  ///< sum of value changes, of change x S, changes
 };
 
-/// Updates every position of the colour; adds to `sums`. Vectorised for degrees 2, 3, 4, 6, 8.
+/// Updates every position of the colour; adds to `sums`. Vectorised for degrees 2, 3, 4, 6, 8
+/// (ties, one update in 2^16, are settled afterwards in position order).
 void update_uniform_colour(const UniformColour& a, UniformSums& sums);
-
-/// Splits the 53-bit thresholds into the (th, tl) pairs of UniformColour.
-void split_thresholds(const std::vector<std::uint64_t>& t, std::vector<std::uint32_t>* th,
-                      std::vector<std::uint32_t>* tl);
 
 }  // namespace spinfer::detail
