@@ -12,6 +12,10 @@
 #include <stdexcept>
 #include <tuple>
 
+#if defined(__linux__)
+#include <sys/mman.h>
+#endif
+
 #include "sampler_engine.hpp"
 #include "sampler_groups.hpp"
 #include "sampler_uniform_groups.hpp"
@@ -91,6 +95,8 @@ void colour_units(std::int64_t N, const std::function<void(std::int64_t, std::ve
 
 // ---- replicas and chains -----------------------------------------------------------------------
 
+struct Group;
+
 struct Replica {
   // Unit values in the model's convention. The uniform kernel updates only `small` and marks v
   // stale; Engine::values() rewrites v when it is read (kept samples), so v is mutable.
@@ -99,9 +105,11 @@ struct Replica {
   std::vector<double> H;  // local fields h_i + sum_j J_ij v_j
   std::vector<std::int32_t> small;  // uniform couplings: v by scan position, then a 0 (padding)
   // Uniform couplings in a lock-step group: the values live at packed[position].v[lane] (the
-  // group's storage) instead of `small`.
+  // group's storage) instead of `small` (Engine::values rewrites all the group's stale replicas
+  // at once).
   UniformLine* packed = nullptr;
   std::int64_t lane = 0;
+  Group* group = nullptr;
   double E = 0;
 };
 
@@ -139,6 +147,8 @@ struct Group {
   std::unique_ptr<UniformLanes> wide;
   std::vector<std::array<std::uint64_t, 4>> ties;
   std::vector<UniformLine> packed;
+  std::vector<Replica*> replicas;     // the members' replicas
+  std::vector<std::int8_t> unpacked;  // values by lane (group_uniform_unpack)
   std::vector<UniformWords> words;
   std::vector<std::uint16_t> pieces;
 };
@@ -288,8 +298,22 @@ class Engine {
   const std::vector<double>& values(const Replica& r) const {
     if (r.stale) {
       if (r.packed) {
-        for (std::int64_t i = 0; i < N_; ++i)
-          r.v[std::size_t(order_[std::size_t(i)])] = double(r.packed[i].v[r.lane]);
+        // Every stale member of the group at once (the members' samples are kept at the same
+        // steps): the values by lane in one pass, then each member's converted.
+        Group& g = *r.group;
+        const std::int64_t stride = std::int64_t(g.unpacked.size()) / kUniformWidth;
+        group_uniform_unpack(g.packed.data(), N_, g.unpacked.data(), stride);
+        for (const Replica* s : g.replicas) {
+          if (!s->stale) continue;
+          const std::int8_t* from = g.unpacked.data() + s->lane * stride;
+          double* to = s->v.data();
+          if (coloured_) {
+            for (std::int64_t i = 0; i < N_; ++i) to[order_[std::size_t(i)]] = double(from[i]);
+          } else {
+            for (std::int64_t i = 0; i < N_; ++i) to[i] = double(from[i]);
+          }
+          s->stale = false;
+        }
       } else {
         for (std::int64_t i = 0; i < N_; ++i)
           r.v[std::size_t(order_[std::size_t(i)])] = double(r.small[std::size_t(i)]);
@@ -305,10 +329,11 @@ class Engine {
     refresh(r);
   }
 
+  /// Mean value. Every value is lo or hi, so the sum is the integer (count of hi) hi + (rest) lo,
+  /// the same double as the sum in any order; counting vectorises where the sum would not.
   double magnetisation(const Replica& r) const {
-    double s = 0;
-    for (double x : values(r)) s += x;
-    return s / double(N_);
+    const std::int64_t high = count_equal(values(r).data(), hi_, N_);
+    return (double(high) * hi_ + double(N_ - high) * lo_) / double(N_);
   }
 
   /// Whether chains can run in lock-step groups: one temperature (no replica exchanges, whose
@@ -337,6 +362,8 @@ class Engine {
       g.packed.back() = UniformLine{};
       g.words.assign(std::size_t(kUniformChunk / 4), UniformWords{});
       g.pieces.assign(std::size_t(kUniformChunk * kUniformWidth), 0);
+      // Rows of N rounded up to 8, plus 72 bytes: lanes a power of two apart would share L1 sets.
+      g.unpacked.assign(std::size_t(((N_ + 7) / 8 * 8 + 72) * kUniformWidth), 0);
       for (std::size_t m = 0; m < g.members.size(); ++m) {
         Chain& c = chains[g.members[m]];
         for (std::size_t w = 0; w < 4; ++w) {
@@ -347,6 +374,8 @@ class Engine {
         values(r);
         r.packed = g.packed.data();
         r.lane = uniform_lane(std::int64_t(m));
+        r.group = &g;
+        g.replicas.push_back(&r);
         for (std::int64_t i = 0; i < N_; ++i)
           r.packed[i].v[r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
         r.small.clear();
@@ -724,6 +753,22 @@ class Driver {
 
 double finite_or(double x, double fallback) { return std::isfinite(x) ? x : fallback; }
 
+/// Asks the kernel for 2 MB pages over [p, p + n) where the system leaves that to the program
+/// (Linux transparent huge pages in "madvise" mode). The kept samples of fast runs are written at
+/// hundreds of MB/s, where faulting in 4 KB pages costs about as much as the sampling itself.
+/// Advice only: the memory and its contents are the same either way.
+void prefer_huge_pages(void* p, std::size_t n) {
+#if defined(__linux__) && defined(MADV_HUGEPAGE)
+  const std::uintptr_t page = std::uintptr_t(1) << 21;
+  const std::uintptr_t begin = (reinterpret_cast<std::uintptr_t>(p) + page - 1) & ~(page - 1);
+  const std::uintptr_t end = (reinterpret_cast<std::uintptr_t>(p) + n) & ~(page - 1);
+  if (end > begin) madvise(reinterpret_cast<void*>(begin), end - begin, MADV_HUGEPAGE);
+#else
+  (void)p;
+  (void)n;
+#endif
+}
+
 }  // namespace
 
 void check_sampler_options(const SamplerOptions& o) {
@@ -938,7 +983,12 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
   const std::int64_t rows = o.samples;
   const std::int64_t row0 = offset[std::size_t(c0)];  // first row of this process's chains
   const std::int64_t my_rows = offset[std::size_t(c1)] - row0;
-  std::vector<std::uint8_t> bits(rq.keep_states ? std::size_t(my_rows * N) : 0);
+  std::vector<std::uint8_t> bits;
+  if (rq.keep_states) {
+    bits.reserve(std::size_t(my_rows * N));
+    prefer_huge_pages(bits.data(), bits.capacity());
+    bits.resize(std::size_t(my_rows * N));
+  }
   res.set.energies.assign(std::size_t(rows), 0.0);
   res.set.chain.assign(std::size_t(rows), 0);
   std::vector<double> magnetisation(std::size_t(rows), 0.0);
@@ -965,9 +1015,7 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     res.set.chain[std::size_t(row)] = std::int32_t(c + std::size_t(c0));
     magnetisation[std::size_t(row)] = engine.magnetisation(r);
     if (rq.keep_states) {
-      std::uint8_t* out = bits.data() + (row - row0) * N;
-      const std::vector<double>& v = engine.values(r);
-      for (std::int64_t k = 0; k < N; ++k) out[k] = v[std::size_t(k)] != lo;
+      mark_unequal(engine.values(r).data(), lo, bits.data() + (row - row0) * N, N);
     }
     if (rq.all_slot_energies)
       for (std::size_t s = 0; s < K; ++s) res.slot_energies[s][c].push_back(ch.replicas[ch.at_slot[s]].E);

@@ -9,11 +9,14 @@
 namespace spinfer::detail {
 
 void group_uniform_sweep_generic(GroupUniform&);
+void group_uniform_unpack_generic(const UniformLine*, std::int64_t, std::int8_t*, std::int64_t);
 void group_general_sweep_generic(GroupGeneral&);
 #if defined(__x86_64__) && defined(__GNUC__)
 void group_uniform_sweep_avx2(GroupUniform&);
+void group_uniform_unpack_avx2(const UniformLine*, std::int64_t, std::int8_t*, std::int64_t);
 void group_general_sweep_avx2(GroupGeneral&);
 void group_uniform_sweep_avx512(GroupUniform&);
+void group_uniform_unpack_avx512(const UniformLine*, std::int64_t, std::int8_t*, std::int64_t);
 void group_general_sweep_avx512(GroupGeneral&);
 #endif
 
@@ -50,6 +53,16 @@ void group_uniform_sweep(GroupUniform& a) {
     case Isa::avx2: return group_uniform_sweep_avx2(a);
 #endif
     default: return group_uniform_sweep_generic(a);
+  }
+}
+
+void group_uniform_unpack(const UniformLine* x, std::int64_t n, std::int8_t* out, std::int64_t stride) {
+  switch (cpu_isa()) {
+#if defined(__x86_64__) && defined(__GNUC__)
+    case Isa::avx512: return group_uniform_unpack_avx512(x, n, out, stride);
+    case Isa::avx2: return group_uniform_unpack_avx2(x, n, out, stride);
+#endif
+    default: return group_uniform_unpack_generic(x, n, out, stride);
   }
 }
 

@@ -18,6 +18,18 @@ void add_scaled(double* __restrict y, const double* __restrict x, double a, std:
   for (std::int64_t j = 0; j < n; ++j) y[j] += a * x[j];
 }
 
+SPINFER_WIDE_CLONES
+std::int64_t count_equal(const double* x, double value, std::int64_t n) {
+  std::int64_t count = 0;
+  for (std::int64_t j = 0; j < n; ++j) count += x[j] == value;
+  return count;
+}
+
+SPINFER_WIDE_CLONES
+void mark_unequal(const double* __restrict x, double value, std::uint8_t* __restrict out, std::int64_t n) {
+  for (std::int64_t j = 0; j < n; ++j) out[j] = x[j] != value;
+}
+
 namespace {
 
 template <typename Word>

@@ -18,6 +18,12 @@ namespace spinfer::detail {
 /// y[j] += a x[j] for j in [0, n).
 void add_scaled(double* __restrict y, const double* __restrict x, double a, std::int64_t n);
 
+/// The number of j in [0, n) with x[j] == value.
+std::int64_t count_equal(const double* x, double value, std::int64_t n);
+
+/// out[j] = (x[j] != value) for j in [0, n) (a kept sample's active bits).
+void mark_unequal(const double* __restrict x, double value, std::uint8_t* __restrict out, std::int64_t n);
+
 /// Eight xoshiro256** generators (the algorithm of rng.hpp) stepped together (one AVX-512
 /// register per state word). Lane l of step t gives out[8t + l]. Seeded from a chain's own
 /// stream, so the bits depend only on that chain.

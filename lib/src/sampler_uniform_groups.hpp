@@ -74,4 +74,9 @@ struct GroupUniform {
 /// One sweep of the group (the members in `active`); the copy group_kernel_isa() names.
 void group_uniform_sweep(GroupUniform& a);
 
+/// The values by lane: out[k stride + i] = x[i].v[k] for every lane k < 64 and position i < n
+/// (stride >= n rounded up to a multiple of 8; `out` holds 64 stride bytes). Reads each position
+/// once for all the group's chains (kept samples are taken at the same steps for all of them).
+void group_uniform_unpack(const UniformLine* x, std::int64_t n, std::int8_t* out, std::int64_t stride);
+
 }  // namespace spinfer::detail
