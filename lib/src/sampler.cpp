@@ -343,8 +343,9 @@ class Engine {
   /// Smallest group worth forming (measured on dense N = 200 and a 64 x 64 lattice): a group's
   /// step costs about the same with one chain as with a full group, and the uniform coloured
   /// kernel already runs one chain as vectors over the sites; smaller groups run their chains
-  /// alone.
-  std::int64_t min_group() const { return uniform_ ? (coloured_ ? 3 : 3) : 3; }
+  /// alone. Uniform couplings, one thread: 2 chains in a group 210 M updates/s against 162 M
+  /// alone (sequential scan); coloured, 4 chains 500 M against 487 M alone, 3 chains 381 M.
+  std::int64_t min_group() const { return uniform_ ? (coloured_ ? 4 : 2) : 3; }
 
   /// Most chains in one group.
   std::int64_t group_width() const { return uniform_ ? kUniformWidth : kGroupWidth; }
@@ -900,7 +901,7 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     const auto count = std::int64_t(nL), width = engine.group_width();
     const std::int64_t n_groups = std::max((count + width - 1) / width,
                                            std::min<std::int64_t>(resolve_threads(o.threads), count));
-    if (count / n_groups >= engine.min_group()) {
+    if (count / n_groups >= (rq.smallest_group > 0 ? rq.smallest_group : engine.min_group())) {
       groups.resize(std::size_t(n_groups));
       for (std::int64_t c = 0; c < count; ++c)
         groups[std::size_t(c * n_groups / count)].members.push_back(std::size_t(c));

@@ -19,6 +19,8 @@ struct EngineRequest {
                                     ///< with persistent or all_slot_energies
   bool lock_step = true;            ///< run chains in lock-step groups where the scan allows
                                     ///< (false: every chain alone; the samples are the same)
+  std::int64_t smallest_group = 0;  ///< tests: form groups from this many chains (0: the
+                                    ///< engine's choice, Engine::min_group)
 };
 
 struct EngineResult {

@@ -2,6 +2,7 @@
 #include "sampler_kernels.hpp"
 
 #include <algorithm>
+#include <atomic>
 #include <cmath>
 #include <cstring>
 
@@ -158,6 +159,13 @@ void split_thresholds(const std::vector<std::uint64_t>& t, std::vector<std::uint
     low->push_back(T - (h << 37));  // <= 2^37
   }
 }
+
+namespace {
+std::atomic<std::int64_t> ties_settled{0};
+}  // namespace
+
+std::int64_t uniform_ties() { return ties_settled.load(std::memory_order_relaxed); }
+void count_uniform_tie() { ties_settled.fetch_add(1, std::memory_order_relaxed); }
 
 void split_pieces(const std::uint64_t* words, std::uint16_t* pieces, std::int64_t n) {
   for (std::int64_t j = 0; j < n; ++j) pieces[j] = std::uint16_t(words[j >> 2] >> (16 * (j & 3)));

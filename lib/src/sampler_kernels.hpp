@@ -137,10 +137,16 @@ inline std::uint64_t tie_bits(std::uint64_t* s) {
   return result >> 27;
 }
 
+/// Ties settled so far by any uniform-coupling kernel in this process (relaxed counter, touched
+/// only on the rare tie path; tests check that ties happen and alike alone and in groups).
+std::int64_t uniform_ties();
+void count_uniform_tie();
+
 /// The decision for the update's 16 bits d and the threshold's parts (high, low); draws from the
 /// tie stream `tie` only when d == high.
 inline bool uniform_pass(std::uint32_t d, std::uint32_t high, std::uint64_t low, std::uint64_t* tie) {
   if (d != high) return d < high;
+  count_uniform_tie();
   return tie_bits(tie) < low;
 }
 

@@ -3,16 +3,21 @@
 // samples, energies and counters must be the same bits in any group, with any group size (partly
 // filled groups, chains that stop one step before the others), on any thread count, across the
 // periodic recomputation of the fields (every 1024 sweeps). Models cover each kernel: dense and
-// CSR couplings, uniform couplings with degree 2, 4, 6 and one above the permute table (degree 8:
-// 17 levels), both conventions, heat bath and Metropolis, sequential and coloured scans.
+// CSR couplings, uniform couplings with degree 2, 4, 6 and one above the byte-shuffle table
+// (degree 8: 17 levels, the portable loop), both conventions, heat bath and Metropolis, sequential
+// and coloured scans. Uniform couplings run in groups of up to 64 chains: every group size from 1
+// to 64 and groups of uneven sizes are checked, and ties of the 16-bit draw (one update in 2^16,
+// settled from each chain's tie stream) happen in those runs, as often in groups as alone.
 #include <doctest/doctest.h>
 
 #include <algorithm>
 #include <string>
+#include <utility>
 #include <vector>
 
 #include "../../lib/src/sampler_engine.hpp"
 #include "../../lib/src/sampler_groups.hpp"
+#include "../../lib/src/sampler_kernels.hpp"
 #include "spinfer/rng.hpp"
 #include "spinfer/sampler.hpp"
 
@@ -51,11 +56,38 @@ IsingModel uneven_ring(int N, Convention c) {
   return m;
 }
 
-detail::EngineResult run(const IsingModel& m, const SamplerOptions& o, bool lock_step) {
+detail::EngineResult run(const IsingModel& m, const SamplerOptions& o, bool lock_step,
+                         std::int64_t smallest_group = 0) {
   detail::EngineRequest rq;
   rq.ladder = {o.temperature};
   rq.lock_step = lock_step;
+  rq.smallest_group = smallest_group;
   return detail::run_engine(m, o, rq);
+}
+
+/// Chain c's rows of a run (rows are chain by chain).
+std::vector<std::int64_t> rows_of(const SampleSet& s, std::int32_t c) {
+  std::vector<std::int64_t> rows;
+  for (std::size_t r = 0; r < s.chain.size(); ++r)
+    if (s.chain[r] == c) rows.push_back(std::int64_t(r));
+  return rows;
+}
+
+/// Every chain of `part` gives, row for row, the bits and energies of the same chain in `whole`
+/// (a run of more chains, or with more samples per chain).
+void check_prefix(const SampleSet& whole, const SampleSet& part, std::int32_t chains) {
+  const std::int64_t N = whole.samples.cols();
+  for (std::int32_t c = 0; c < chains; ++c) {
+    const auto a = rows_of(whole, c), b = rows_of(part, c);
+    REQUIRE(!b.empty());
+    REQUIRE(b.size() <= a.size());
+    for (std::size_t r = 0; r < b.size(); ++r) {
+      CHECK(whole.energies[std::size_t(a[r])] == part.energies[std::size_t(b[r])]);
+      const std::uint8_t* x = whole.samples.data() + a[r] * N;
+      const std::uint8_t* y = part.samples.data() + b[r] * N;
+      CHECK(std::equal(x, x + N, y));
+    }
+  }
 }
 
 void check_same(const SampleSet& a, const SampleSet& b) {
@@ -78,7 +110,7 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
     IsingModel model;
     std::string storage;
   };
-  std::vector<Case> cases;
+  std::vector<Case> cases;  // uniform couplings: names starting with "uniform"
   for (Convention c : {Convention::spin, Convention::binary}) {
     const std::string conv = c == Convention::spin ? " spin" : " binary";
     cases.push_back({"dense" + conv, random_dense(13, c, 3), "dense"});
@@ -105,7 +137,7 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
           o.seed = 41;
           o.burn_in = 1030;  // past the first recomputation of the fields
           o.thin = 2;
-          // 15 chains: groups of 8 + 7 (large enough for every kernel, Engine::min_group); 15 x 7
+          // 15 chains: groups of 8 + 7 or 15 (large enough for every kernel, Engine::min_group); 15 x 7
           // + 4 samples, so four chains take one step more than the others (their group steps
           // them alone at the end).
           o.chains = 15;
@@ -114,7 +146,8 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
           const SampleSet alone = run(k.model, o, false).set;
           CHECK(alone.diagnostics.lock_step_groups == 0);
           const SampleSet grouped = run(k.model, o, true).set;
-          CHECK(grouped.diagnostics.lock_step_groups == 2);
+          // One thread: groups of 8 + 7 chains, or all 15 in one uniform-coupling group.
+          CHECK(grouped.diagnostics.lock_step_groups == (k.name.rfind("uniform", 0) == 0 ? 1 : 2));
           check_same(alone, grouped);
           o.threads = 2;
           check_same(alone, run(k.model, o, true).set);
@@ -132,32 +165,103 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
 }
 
 TEST_CASE("lock-step groups: automatic burn-in and persistent chains") {
-  const IsingModel m = ring(40, 2, 0.3, 0.05, Convention::spin);
-  SamplerOptions o;
-  o.chains = 15;
-  o.samples = 15 * 30;
-  o.seed = 8;
-  o.threads = 2;
-  o.scan = "coloured";
-  // The pilot tunes on all chains' energies: the same series, so the same burn-in and thinning.
-  const SampleSet grouped = run(m, o, true).set;
-  CHECK(grouped.diagnostics.lock_step_groups == 2);
-  check_same(run(m, o, false).set, grouped);
-  // continue_chains: the final states go back into ChainStates from the groups' storage.
-  o.burn_in = 5;
-  o.thin = 1;
-  ChainStates a, b;
-  for (int call = 0; call < 2; ++call) {
-    o.seed = 100 + std::uint64_t(call);
-    detail::EngineRequest rq;
-    rq.ladder = {1.0};
-    rq.persistent = &a;
-    rq.lock_step = false;
-    const SampleSet x = detail::run_engine(m, o, rq).set;
-    rq.persistent = &b;
-    rq.lock_step = true;
-    const SampleSet y = detail::run_engine(m, o, rq).set;
-    check_same(x, y);
-    CHECK(a.active == b.active);
-  }
+  // Uniform couplings (one group of up to 64 chains per thread) in both scans, and a model that is
+  // not uniform (groups of up to 8).
+  IsingModel uneven = uneven_ring(40, Convention::spin);
+  for (const IsingModel& m : {ring(40, 2, 0.3, 0.05, Convention::spin), uneven})
+    for (const char* scan : {"coloured", "sequential"}) {
+      INFO(scan);
+      SamplerOptions o;
+      o.chains = 15;
+      o.samples = 15 * 30;
+      o.seed = 8;
+      o.threads = 2;
+      o.scan = scan;
+      o.storage = "sparse";
+      // The pilot tunes on all chains' energies: the same series, so the same burn-in and thinning.
+      const SampleSet grouped = run(m, o, true).set;
+      CHECK(grouped.diagnostics.lock_step_groups == 2);
+      check_same(run(m, o, false).set, grouped);
+      // continue_chains: the final states go back into ChainStates from the groups' storage.
+      o.burn_in = 5;
+      o.thin = 1;
+      ChainStates a, b;
+      for (int call = 0; call < 2; ++call) {
+        o.seed = 100 + std::uint64_t(call);
+        detail::EngineRequest rq;
+        rq.ladder = {1.0};
+        rq.persistent = &a;
+        rq.lock_step = false;
+        const SampleSet x = detail::run_engine(m, o, rq).set;
+        rq.persistent = &b;
+        rq.lock_step = true;
+        const SampleSet y = detail::run_engine(m, o, rq).set;
+        check_same(x, y);
+        CHECK(a.active == b.active);
+      }
+    }
+}
+
+TEST_CASE("uniform-coupling groups: any group size from 1 to 64, uneven groups, ties") {
+  struct Case {
+    std::string name;
+    IsingModel model;
+  };
+  const std::vector<Case> cases = {
+      {"degree 4 spin", ring(17, 2, 0.45, 0.1, Convention::spin)},
+      {"degree 2 binary", ring(15, 1, 0.9, -0.4, Convention::binary)},
+      {"degree 8 spin (portable loop)", ring(19, 4, 0.2, 0.05, Convention::spin)},
+  };
+  // (chains, threads): one group of that many chains, two groups of one chain, groups of 9 + 8,
+  // 33 + 32, 64 + 63 and 44 + 43 + 43 chains (three groups: at most 64 chains each).
+  const std::vector<std::pair<int, int>> runs = {{1, 1},  {2, 2},  {2, 1},  {3, 1},  {7, 1},  {8, 1},
+                                                 {9, 1},  {17, 2}, {31, 1}, {32, 1}, {33, 1}, {63, 1},
+                                                 {64, 1}, {65, 1}, {127, 2}, {130, 2}};
+  constexpr int kAll = 130;
+  for (const Case& k : cases)
+    for (const char* method : {"gibbs", "metropolis"})
+      for (const char* scan : {"sequential", "coloured"}) {
+        SamplerOptions o;
+        o.method = method;
+        o.scan = scan;
+        o.storage = "sparse";
+        o.seed = 23;
+        o.burn_in = 1030;  // past the first recomputation of the fields
+        o.thin = 2;
+        o.chains = kAll;
+        o.samples = kAll * 6;
+        o.threads = 2;
+        // Reference: every chain alone (the single-chain kernels), 6 kept samples each.
+        const std::int64_t ties0 = detail::uniform_ties();
+        const SampleSet alone = run(k.model, o, false).set;
+        const std::int64_t alone_ties = detail::uniform_ties() - ties0;
+        CHECK(alone.diagnostics.lock_step_groups == 0);
+        // 2.0-2.6 M updates: 31-40 ties expected (one in 2^16), none with probability below e^-30.
+        CHECK(alone_ties > 0);
+        for (const char* isa : {"generic", "avx2", "avx512"}) {
+          if (!detail::use_group_kernel_isa(isa)) {
+            MESSAGE("this CPU does not run the " << std::string(isa) << " lock-step kernels: not tested");
+            continue;
+          }
+          for (const auto& [chains, threads] : runs) {
+            INFO(std::string(isa) << ": " << k.name << ", " << method << ", " << scan << ", " << chains
+                                  << " chains on " << threads << " threads");
+            o.chains = chains;
+            o.threads = threads;
+            // Half the chains keep one sample more (their groups step them alone at the end).
+            o.samples = chains * 5 + chains / 2;
+            const SampleSet grouped = run(k.model, o, true, 1).set;
+            CHECK(grouped.diagnostics.lock_step_groups == std::max<std::int64_t>((chains + 63) / 64, std::min(threads, chains)));
+            check_prefix(alone, grouped, chains);
+            if (chains == kAll) {
+              // The same chains and steps as the reference: the same ties.
+              o.samples = kAll * 6;
+              const std::int64_t at = detail::uniform_ties();
+              check_same(alone, run(k.model, o, true, 1).set);
+              CHECK(detail::uniform_ties() - at == alone_ties);
+            }
+          }
+        }
+        detail::use_group_kernel_isa(nullptr);
+      }
 }

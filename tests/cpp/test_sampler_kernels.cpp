@@ -1,11 +1,14 @@
 // The sampler's table-driven acceptance tests against the formulas they replace: every decision
 // must equal the exact test (heat bath: u (1 + exp(-x)) < 1, the logistic probability; Metropolis:
 // y <= 0 or u < exp(-y)), including draws a few steps of 2^-53 from the boundary and arguments
-// beyond the table.
+// beyond the table; and the uniform-coupling kernels' split draw (16 bits, then 37 more on a tie)
+// against the direct 53-bit comparison m < T.
 #include <doctest/doctest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <cstdint>
+#include <vector>
 
 #include "../../lib/src/sampler_kernels.hpp"
 #include "spinfer/rng.hpp"
@@ -63,4 +66,58 @@ TEST_CASE("acceptance table: thresholds of the uniform kernel equal the exact te
     CHECK(!AcceptanceTable::exact_metropolis(y, M));
   }
   CHECK(metropolis_threshold(-1.0) == (std::uint64_t(1) << 53));
+}
+
+TEST_CASE("uniform-coupling draw: 16 bits plus a tie draw decide exactly as the 53-bit comparison") {
+  // Reference: the direct test m < T with m = d 2^37 + e (d: the update's 16 bits, e: the tie
+  // draw's 37 bits). Thresholds at the edges of the split (0, multiples of 2^37 and their
+  // neighbours, 2^53 - 1, 2^53) and random ones; draws d at, around and away from the high part;
+  // and thresholds whose low part sits at, just above and just below the tie draw that comes.
+  constexpr std::uint64_t two37 = std::uint64_t(1) << 37, two53 = std::uint64_t(1) << 53;
+  Rng rng(11, 0);
+  std::vector<std::uint64_t> T = {0, 1, two37 - 1, two37, two37 + 1, 5 * two37, two53 - two37,
+                                  two53 - two37 + 1, two53 - 1, two53};
+  for (int i = 0; i < 200; ++i) T.push_back(rng.next() >> 11);
+  std::vector<std::uint32_t> high;
+  std::vector<std::uint64_t> low;
+  split_thresholds(T, &high, &low);
+  std::uint64_t tie[4] = {rng.next(), rng.next(), rng.next(), rng.next()};
+  std::int64_t ties = 0;
+  auto check = [&](std::uint32_t d, std::uint64_t t, std::uint32_t h, std::uint64_t l) {
+    std::uint64_t next[4] = {tie[0], tie[1], tie[2], tie[3]};
+    const std::uint64_t e = tie_bits(next);  // the draw a tie would take
+    REQUIRE(e < two37);
+    const bool pass = uniform_pass(d, h, l, tie);
+    CHECK(pass == (std::uint64_t(d) * two37 + e < t));
+    // The tie stream advances exactly on a tie.
+    const bool advanced = std::equal(tie, tie + 4, next);
+    CHECK(advanced == (d == h));
+    ties += d == h;
+  };
+  for (std::size_t k = 0; k < T.size(); ++k) {
+    INFO("T = " << T[k]);
+    CHECK(high[k] <= 0xffff);
+    CHECK(low[k] <= two37);
+    CHECK(std::uint64_t(high[k]) * two37 + low[k] == T[k]);
+    for (std::int64_t d : {std::int64_t(high[k]) - 1, std::int64_t(high[k]), std::int64_t(high[k]) + 1,
+                           std::int64_t(0), std::int64_t(0xffff), std::int64_t(rng.next() >> 48)})
+      if (d >= 0 && d <= 0xffff) check(std::uint32_t(d), T[k], high[k], low[k]);
+  }
+  // Ties against a low part at the coming draw e and beside it.
+  for (int i = 0; i < 200; ++i) {
+    std::uint64_t next[4] = {tie[0], tie[1], tie[2], tie[3]};
+    const std::uint64_t e = tie_bits(next);
+    const auto h = std::uint32_t(rng.next() >> 48) & 0x7fff;
+    for (std::uint64_t l : {e, e + 1, e > 0 ? e - 1 : 0}) {
+      const std::uint64_t t = std::uint64_t(h) * two37 + l;
+      std::vector<std::uint32_t> hh;
+      std::vector<std::uint64_t> ll;
+      split_thresholds({t}, &hh, &ll);
+      REQUIRE(hh[0] == h);
+      check(h, t, hh[0], ll[0]);
+    }
+  }
+  // T = 2^53: every draw passes, the tie (d = 2^16 - 1) included.
+  check(0xffff, two53, 0xffff, two37);
+  CHECK(ties > 600);
 }
