@@ -23,14 +23,16 @@ mode there: colours of the coupling graph in turn, each colour updated as vector
 exact tabulated thresholds). The 1-thread rows run one chain; "vs numpy ..." rows repeat a
 spinfer rate against another numpy baseline for reference. The "8 chains" / "16 chains" rows
 run 8 chains per thread, which spinfer advances as one lock-step group (vectors across chains;
-"groups" gives the number); the numpy baselines are the same as for the other rows.
+"groups" gives the number); the lattice "64 chains" / "128 chains" rows run 64 chains per thread,
+one group each (uniform couplings: up to 64 chains per group, one byte per chain and site); the
+numpy baselines are the same as for the other rows.
 Every spinfer run keeps one sample every 10 sweeps (the numpy baselines keep none).
 Prints JSON lines: {"name", "updates_per_second", "ratio", "cpu_ratio"} where ratio = spinfer /
 best numpy for that model in wall-clock time. On a shared machine wall-clock rates swing with the
 load, so single-thread rows also give cpu_ratio: the same ratio from process CPU time (numpy
 loop vs. the spinfer call minus the CPU time of a one-sweep call, i.e. without the set-up), which
 is insensitive to other processes.
-Usage: python benchmarks/bench_sampler.py [--quick]
+Usage: python benchmarks/bench_sampler.py [--quick] [--only dense|lattice]
 """
 import argparse
 import json
@@ -180,8 +182,17 @@ def emit(name, rate, best_numpy, cpu=None, **extra):
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="fewer sweeps (noisier)")
-    q = ap.parse_args().quick
+    ap.add_argument("--only", choices=["dense", "lattice"], help="run one model's rows only")
+    args = ap.parse_args()
+    q = args.quick
     rng = np.random.default_rng(0)
+    if args.only != "lattice":
+        dense_rows(q, rng)
+    if args.only != "dense":
+        lattice_rows(q, rng)
+
+
+def dense_rows(q, rng):
 
     # --- dense SK, N = 200 ---
     h, J = sk_model(200)
@@ -212,6 +223,9 @@ def main():
     emit("dense N=200 spinfer 2 threads, 16 chains (lock-step groups) vs numpy 2 processes", r16,
          np2, groups=d.get("lock_step_groups"))
 
+
+
+def lattice_rows(q, rng):
     # --- 64 x 64 periodic lattice ---
     L, K = 64, 0.4
     hl, Jl = lattice_model(L, K)
@@ -239,6 +253,14 @@ def main():
         r16, d = spinfer_rate(hl, Jl, sweeps // 16, 16, 2, scan)
         emit(f"lattice 64x64 spinfer 2 threads, 16 chains ({label}, lock-step groups) vs numpy 2 "
              "processes", r16, npl2, groups=d.get("lock_step_groups"))
+        # 64 chains per thread: 4 times the updates of the one-chain row, so the run lasts long
+        # enough at these rates.
+        r64, d = spinfer_rate(hl, Jl, sweeps // 16, 64, 1, scan)
+        emit(f"lattice 64x64 spinfer 1 thread, 64 chains ({label}, one lock-step group)", r64, bestl,
+             cpu=(d["cpu_rate"], bestlc), groups=d.get("lock_step_groups"))
+        r128, d = spinfer_rate(hl, Jl, sweeps // 32, 128, 2, scan)
+        emit(f"lattice 64x64 spinfer 2 threads, 128 chains ({label}, lock-step groups) vs numpy 2 "
+             "processes", r128, npl2, groups=d.get("lock_step_groups"))
 
 
 if __name__ == "__main__":

@@ -105,9 +105,11 @@ struct Replica {
   std::vector<double> H;  // local fields h_i + sum_j J_ij v_j
   std::vector<std::int32_t> small;  // uniform couplings: v by scan position, then a 0 (padding)
   // Uniform couplings in a lock-step group: the values live at packed[position].v[lane] (the
-  // group's storage) instead of `small` (Engine::values rewrites all the group's stale replicas
-  // at once).
+  // group's storage) instead of `small`. Engine::values transposes them for all the group's
+  // stale replicas at once (Group::unpacked, by scan position; kept samples are read from there)
+  // and marks v as behind (`v_behind`) until it is read.
   UniformLine* packed = nullptr;
+  mutable bool v_behind = false;
   std::int64_t lane = 0;
   Group* group = nullptr;
   double E = 0;
@@ -293,31 +295,42 @@ class Engine {
       for (auto& r : c.replicas) refresh(r);
   }
 
+  /// A group member's values by scan position (Group::unpacked). Transposes the group's storage
+  /// when this member changed since: every stale member of the group at once, as the members'
+  /// samples are kept at the same steps (the other members' rows are rewritten unchanged).
+  const std::int8_t* unpacked(const Replica& r) const {
+    Group& g = *r.group;
+    const std::int64_t stride = std::int64_t(g.unpacked.size()) / kUniformWidth;
+    if (r.stale) {
+      group_uniform_unpack(g.packed.data(), N_, g.unpacked.data(), stride);
+      for (const Replica* s : g.replicas)
+        if (s->stale) {
+          s->stale = false;
+          s->v_behind = true;
+        }
+    }
+    return g.unpacked.data() + r.lane * stride;
+  }
+
   /// Sets the replica to the given active bits (N of them) and recomputes its fields and energy.
   /// The replica's unit values (by unit), brought up to date from the uniform kernel's copy.
   const std::vector<double>& values(const Replica& r) const {
-    if (r.stale) {
-      if (r.packed) {
-        // Every stale member of the group at once (the members' samples are kept at the same
-        // steps): the values by lane in one pass, then each member's converted.
-        Group& g = *r.group;
-        const std::int64_t stride = std::int64_t(g.unpacked.size()) / kUniformWidth;
-        group_uniform_unpack(g.packed.data(), N_, g.unpacked.data(), stride);
-        for (const Replica* s : g.replicas) {
-          if (!s->stale) continue;
-          const std::int8_t* from = g.unpacked.data() + s->lane * stride;
-          double* to = s->v.data();
-          if (coloured_) {
-            for (std::int64_t i = 0; i < N_; ++i) to[order_[std::size_t(i)]] = double(from[i]);
-          } else {
-            for (std::int64_t i = 0; i < N_; ++i) to[i] = double(from[i]);
-          }
-          s->stale = false;
+    if (r.packed) {
+      const std::int8_t* from = unpacked(r);
+      if (r.v_behind) {
+        double* to = r.v.data();
+        if (coloured_) {
+          for (std::int64_t i = 0; i < N_; ++i) to[order_[std::size_t(i)]] = double(from[i]);
+        } else {
+          for (std::int64_t i = 0; i < N_; ++i) to[i] = double(from[i]);
         }
-      } else {
-        for (std::int64_t i = 0; i < N_; ++i)
-          r.v[std::size_t(order_[std::size_t(i)])] = double(r.small[std::size_t(i)]);
+        r.v_behind = false;
       }
+      return r.v;
+    }
+    if (r.stale) {
+      for (std::int64_t i = 0; i < N_; ++i)
+        r.v[std::size_t(order_[std::size_t(i)])] = double(r.small[std::size_t(i)]);
       r.stale = false;
     }
     return r.v;
@@ -329,10 +342,21 @@ class Engine {
     refresh(r);
   }
 
-  /// Mean value. Every value is lo or hi, so the sum is the integer (count of hi) hi + (rest) lo,
-  /// the same double as the sum in any order; counting vectorises where the sum would not.
-  double magnetisation(const Replica& r) const {
-    const std::int64_t high = count_equal(values(r).data(), hi_, N_);
+  /// A kept sample: the mean value and (if `active` is not null) the active bits by unit. Every
+  /// value is lo or hi, so the sum of the values is the integer (count of hi) hi + (rest) lo, the
+  /// same double as the sum in any order; counting vectorises where the sum would not. Replicas of
+  /// a uniform-coupling group are read from the group's transposed bytes.
+  double kept_state(const Replica& r, std::uint8_t* active) const {
+    std::int64_t high;
+    if (r.packed) {
+      const std::int8_t* x = unpacked(r);
+      high = count_equal(x, std::int8_t(hi_), N_);
+      if (active) mark_unequal(x, std::int8_t(lo_), coloured_ ? order_.data() : nullptr, active, N_);
+    } else {
+      const double* v = values(r).data();
+      high = count_equal(v, hi_, N_);
+      if (active) mark_unequal(v, lo_, active, N_);
+    }
     return (double(high) * hi_ + double(N_ - high) * lo_) / double(N_);
   }
 
@@ -376,6 +400,7 @@ class Engine {
         r.packed = g.packed.data();
         r.lane = uniform_lane(std::int64_t(m));
         r.group = &g;
+        r.stale = true;  // Group::unpacked is filled on the first read
         g.replicas.push_back(&r);
         for (std::int64_t i = 0; i < N_; ++i)
           r.packed[i].v[r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
@@ -1014,10 +1039,8 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
     const Replica& r = ch.replicas[ch.at_slot[target]];
     res.set.energies[std::size_t(row)] = r.E;
     res.set.chain[std::size_t(row)] = std::int32_t(c + std::size_t(c0));
-    magnetisation[std::size_t(row)] = engine.magnetisation(r);
-    if (rq.keep_states) {
-      mark_unequal(engine.values(r).data(), lo, bits.data() + (row - row0) * N, N);
-    }
+    magnetisation[std::size_t(row)] =
+        engine.kept_state(r, rq.keep_states ? bits.data() + (row - row0) * N : nullptr);
     if (rq.all_slot_energies)
       for (std::size_t s = 0; s < K; ++s) res.slot_energies[s][c].push_back(ch.replicas[ch.at_slot[s]].E);
   });

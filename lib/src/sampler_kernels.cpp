@@ -31,6 +31,29 @@ void mark_unequal(const double* __restrict x, double value, std::uint8_t* __rest
   for (std::int64_t j = 0; j < n; ++j) out[j] = x[j] != value;
 }
 
+SPINFER_WIDE_CLONES
+std::int64_t count_equal(const std::int8_t* x, std::int8_t value, std::int64_t n) {
+  // 16-bit partial counts (one widening of the byte compares instead of three).
+  std::int64_t count = 0;
+  for (std::int64_t begin = 0; begin < n; begin += 32768) {
+    const std::int64_t end = std::min(n, begin + 32768);
+    std::uint16_t part = 0;
+    for (std::int64_t j = begin; j < end; ++j) part = std::uint16_t(part + (x[j] == value));
+    count += part;
+  }
+  return count;
+}
+
+SPINFER_WIDE_CLONES
+void mark_unequal(const std::int8_t* __restrict x, std::int8_t value, const std::int32_t* order,
+                  std::uint8_t* __restrict out, std::int64_t n) {
+  if (order) {
+    for (std::int64_t j = 0; j < n; ++j) out[order[j]] = x[j] != value;
+  } else {
+    for (std::int64_t j = 0; j < n; ++j) out[j] = x[j] != value;
+  }
+}
+
 namespace {
 
 template <typename Word>

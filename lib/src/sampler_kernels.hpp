@@ -24,6 +24,11 @@ std::int64_t count_equal(const double* x, double value, std::int64_t n);
 /// out[j] = (x[j] != value) for j in [0, n) (a kept sample's active bits).
 void mark_unequal(const double* __restrict x, double value, std::uint8_t* __restrict out, std::int64_t n);
 
+/// The same for int8 values; out[order[j]] (order null: out[j]) = (x[j] != value).
+std::int64_t count_equal(const std::int8_t* x, std::int8_t value, std::int64_t n);
+void mark_unequal(const std::int8_t* __restrict x, std::int8_t value, const std::int32_t* order,
+                  std::uint8_t* __restrict out, std::int64_t n);
+
 /// Eight xoshiro256** generators (the algorithm of rng.hpp) stepped together (one AVX-512
 /// register per state word). Lane l of step t gives out[8t + l]. Seeded from a chain's own
 /// stream, so the bits depend only on that chain.
