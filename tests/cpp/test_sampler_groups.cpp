@@ -265,3 +265,34 @@ TEST_CASE("uniform-coupling groups: any group size from 1 to 64, uneven groups, 
         detail::use_group_kernel_isa(nullptr);
       }
 }
+
+TEST_CASE("uniform-coupling groups: sweeps longer than the kernel's count flushes") {
+  // 4800 positions per sweep: the AVX-512 kernel (the only one with these counts) widens its byte
+  // counts every 16 positions and its 16-bit counts every 4096, so a sweep crosses both; energies
+  // and states as alone. (The model is built dense, N^2 doubles: kept to one size and one copy.)
+  const IsingModel m = ring(4800, 3, 0.2, -0.05, Convention::spin);
+  for (const char* isa : {"avx512"}) {
+    if (!detail::use_group_kernel_isa(isa)) {
+      MESSAGE("this CPU does not run the avx512 lock-step kernels: not tested");
+      continue;
+    }
+    for (const char* method : {"gibbs", "metropolis"})
+      for (const char* scan : {"sequential", "coloured"}) {
+        INFO(std::string(isa) << ", " << method << ", " << scan);
+        SamplerOptions o;
+        o.method = method;
+        o.scan = scan;
+        o.storage = "sparse";
+        o.seed = 4;
+        o.burn_in = 2;
+        o.thin = 1;
+        o.chains = 5;
+        o.samples = 5 * 3;
+        o.threads = 1;
+        const SampleSet grouped = run(m, o, true, 1).set;
+        CHECK(grouped.diagnostics.lock_step_groups == 1);
+        check_same(run(m, o, false).set, grouped);
+      }
+  }
+  detail::use_group_kernel_isa(nullptr);
+}
