@@ -563,9 +563,10 @@ class Engine {
 
   /// Uniform couplings (one value K, one field h0), coloured or sequential scan. Each field is
   /// h0 + K S_k with S_k the sum of the neighbours' values, a small integer computed from the
-  /// int32 copy of the values held by scan position; the test compares the draw's 53 bits with
-  /// the tabulated integer threshold for S_k: the double test u < p of heat_bath_threshold /
-  /// metropolis_threshold exactly, with no exp and no unpredictable branch. The random bits of a
+  /// int32 copy of the values held by scan position; the test "53-bit draw < the tabulated
+  /// integer threshold for S_k" (the double test u < p of heat_bath_threshold /
+  /// metropolis_threshold exactly, with no exp) is decided from 16 random bits and, on one
+  /// update in 2^16, 37 more from the tie stream (uniform_pass, sampler_kernels.hpp). The bits of a
   /// colour (the coloured scan: its units are not coupled, so update_uniform_colour runs them as
   /// vectors) or of the sweep (sequential: one "colour" in unit order, one unit at a time) come
   /// in one batch, as they do not depend on the state. The energy change sum_k -dv_k H_k is
