@@ -62,7 +62,8 @@ struct GroupGeneral {
 /// One sweep of the group (the lanes in `active`).
 void group_general_sweep(GroupGeneral& a);
 
-/// The copy group_general_sweep and group_uniform_sweep (sampler_uniform_groups.hpp) use: "generic", "avx2" or "avx512" (the widest the CPU runs).
+/// The copy group_general_sweep and group_uniform_sweep (sampler_uniform_groups.hpp) use:
+/// "generic", "avx2" or "avx512" (the widest the CPU runs).
 const char* group_kernel_isa();
 /// Tests: use the named copy from now on (nullptr: the widest again); false when the CPU cannot
 /// run it (nothing changes then).
