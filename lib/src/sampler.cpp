@@ -17,6 +17,7 @@
 #endif
 
 #include "sampler_engine.hpp"
+#include "aligned_vector.hpp"
 #include "sampler_groups.hpp"
 #include "sampler_uniform_groups.hpp"
 #include "sampler_kernels.hpp"
@@ -33,7 +34,10 @@ namespace {
 struct Couplings {
   bool sparse = false;
   double density = 0;
-  Eigen::MatrixXd dense;               // column k holds J_jk for all j (symmetric, zero diagonal)
+  // Column-major N x N: column k holds J_jk for all j (symmetric, zero diagonal); cache-line
+  // aligned, as the lock-step kernels read columns as 64-byte vectors.
+  AlignedVector<double> dense;
+  Eigen::Map<const Eigen::MatrixXd> dense_matrix(std::int64_t N) const { return {dense.data(), N, N}; }
   std::vector<std::int64_t> offsets;   // CSR: neighbours of k at [offsets[k], offsets[k+1])
   std::vector<std::int32_t> index;
   std::vector<double> value;
@@ -48,7 +52,7 @@ Couplings make_couplings(const IsingModel& m, const std::string& storage, double
   c.density = N > 1 ? double(nnz) / (double(N) * double(N - 1)) : 0.0;
   c.sparse = storage == "sparse" || (storage == "auto" && c.density < threshold);
   if (!c.sparse) {
-    c.dense = m.couplings;
+    c.dense.assign(m.couplings.data(), m.couplings.data() + N * N);
     return c;
   }
   c.offsets.assign(std::size_t(N + 1), 0);
@@ -102,7 +106,7 @@ struct Replica {
   // stale; Engine::values() rewrites v when it is read (kept samples), so v is mutable.
   mutable std::vector<double> v;
   mutable bool stale = false;
-  std::vector<double> H;  // local fields h_i + sum_j J_ij v_j
+  AlignedVector<double> H;  // local fields h_i + sum_j J_ij v_j
   std::vector<std::int32_t> small;  // uniform couplings: v by scan position, then a 0 (padding)
   // Uniform couplings in a lock-step group: the values live at packed[position].v[lane] (the
   // group's storage) instead of `small`. Engine::values transposes them for all the group's
@@ -177,7 +181,7 @@ class Engine {
           for (auto p = c.offsets[std::size_t(k)]; p < c.offsets[std::size_t(k + 1)]; ++p) nb.push_back(c.index[std::size_t(p)]);
         } else {
           for (std::int64_t j = 0; j < N_; ++j)
-            if (j != k && c.dense(j, k) != 0.0) nb.push_back(j);
+            if (j != k && c.dense[std::size_t(k * N_ + j)] != 0.0) nb.push_back(j);
         }
       }, &order_, &colour_start_);
     }
@@ -194,6 +198,11 @@ class Engine {
                N_ * degree <= 2 * std::int64_t(c.index.size()) &&
                std::all_of(c.value.begin(), c.value.end(), [&](double x) { return x == c.value[0]; }) &&
                (h_.array() == h_(0)).all();
+    // Dense lock-step groups may add a field update as one fused multiply-add when every product
+    // dl J_jk is exact (|dl| = hi - lo in {1, 2}; no |J_jk| near the overflow threshold).
+    fused_products_ = !c.sparse && (hi_ - lo_ == 1.0 || hi_ - lo_ == 2.0) &&
+                      std::all_of(c.dense.begin(), c.dense.end(),
+                                          [](double x) { return std::abs(x) < std::ldexp(1.0, 1000); });
     if (uniform_) {
       K_ = c.value[0];
       h0_ = h_(0);
@@ -495,6 +504,7 @@ class Engine {
       a.hi = hi_;
       a.beta = betas_[0];
       a.gibbs = gibbs_;
+      a.fused = fused_products_;
       a.lanes = &g.lanes;
       a.draws = g.draws.data();
       group_general_sweep(a);
@@ -537,7 +547,7 @@ class Engine {
       }
     } else {
       const Eigen::Map<const Eigen::VectorXd> v(r.v.data(), N_);
-      Eigen::Map<Eigen::VectorXd>(r.H.data(), N_) = h_ + couplings_.dense * v;
+      Eigen::Map<Eigen::VectorXd>(r.H.data(), N_) = h_ + couplings_.dense_matrix(N_) * v;
     }
     // E = -sum_i h_i v_i - 1/2 sum_i v_i (H_i - h_i) = -1/2 sum_i v_i (H_i + h_i)
     double e = 0;
@@ -685,6 +695,7 @@ class Engine {
   Eigen::VectorXd h_;
   double lo_, hi_;
   bool gibbs_, random_scan_, coloured_, uniform_ = false;
+  bool fused_products_ = false;   // dense: see GroupGeneral::fused
   double K_ = 0, h0_ = 0;         // uniform couplings: the one coupling and field value
   std::int64_t dmax_ = 0;         // uniform couplings: the largest degree
   std::string start_;

@@ -3,6 +3,8 @@
 #include "sampler_groups.hpp"
 #include "sampler_uniform_groups.hpp"
 
+#include "draw_brackets.hpp"
+
 #include <atomic>
 #include <cstring>
 
@@ -69,6 +71,8 @@ void group_uniform_unpack(const UniformLine* x, std::int64_t n, std::int8_t* out
 void group_general_sweep(GroupGeneral& a) {
   const AcceptanceTable& table = acceptance_table();
   a.cells = a.gibbs ? table.logistic_cells() : table.decay_cells();
+  const DrawBrackets& brackets = draw_brackets();
+  a.draw_cells = a.gibbs ? brackets.heat_bath.data() : brackets.metropolis.data();
   switch (cpu_isa()) {
 #if defined(__x86_64__) && defined(__GNUC__)
     case Isa::avx512: return group_general_sweep_avx512(a);

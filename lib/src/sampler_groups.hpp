@@ -54,9 +54,14 @@ struct GroupGeneral {
   const double* value = nullptr;
   double lo = -1, hi = 1, beta = 1;
   bool gibbs = true;
+  /// Dense: every product dl J_jk of a field update is exact (|dl| = hi - lo is 1 or 2 and no
+  /// |J_jk| reaches 2^1000), so fused multiply-adds give the bits of a product then a sum.
+  bool fused = false;
   GroupLanes* lanes = nullptr;
   std::uint64_t* draws = nullptr;       ///< scratch: kGroupChunk x kGroupWidth
-  const AcceptanceTable::Bracket* cells = nullptr;  ///< set by group_general_sweep
+  const AcceptanceTable::Bracket* cells = nullptr;  ///< set by group_general_sweep (CSR)
+  const std::uint64_t* draw_cells = nullptr;        ///< set by group_general_sweep (dense):
+                                                    ///< DrawBrackets for the method
 };
 
 /// One sweep of the group (the lanes in `active`).

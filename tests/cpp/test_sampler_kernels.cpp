@@ -2,7 +2,9 @@
 // must equal the exact test (heat bath: u (1 + exp(-x)) < 1, the logistic probability; Metropolis:
 // y <= 0 or u < exp(-y)), including draws a few steps of 2^-53 from the boundary and arguments
 // beyond the table; and the uniform-coupling kernels' split draw (16 bits, then 37 more on a tie)
-// against the direct 53-bit comparison m < T.
+// against the direct 53-bit comparison m < T; and the dense lock-step kernel's draw-side brackets
+// (DrawBrackets): an argument beyond a cell's bound must give the exact test's outcome for every
+// draw of the cell.
 #include <doctest/doctest.h>
 
 #include <algorithm>
@@ -10,6 +12,7 @@
 #include <cstdint>
 #include <vector>
 
+#include "../../lib/src/draw_brackets.hpp"
 #include "../../lib/src/sampler_kernels.hpp"
 #include "spinfer/rng.hpp"
 
@@ -120,4 +123,59 @@ TEST_CASE("uniform-coupling draw: 16 bits plus a tie draw decide exactly as the 
   // T = 2^53: every draw passes, the tie (d = 2^16 - 1) included.
   check(0xffff, two53, 0xffff, two37);
   CHECK(ties > 600);
+}
+
+TEST_CASE("draw brackets: an argument beyond a cell's bound decides as the exact test, for any draw of the cell") {
+  const DrawBrackets& b = draw_brackets();
+  REQUIRE(std::int64_t(b.heat_bath.size()) == DrawBrackets::kCells);
+  REQUIRE(std::int64_t(b.metropolis.size()) == DrawBrackets::kCells);
+  constexpr int cell_bits = 53 - DrawBrackets::kBits;  // cell of the 53-bit draw m: m >> cell_bits
+  Rng rng(8, 0);
+  std::int64_t checked = 0;
+  for (std::int64_t c = 0; c < DrawBrackets::kCells; ++c) {
+    const std::uint64_t first = std::uint64_t(c) << cell_bits, last = first + (std::uint64_t(1) << cell_bits) - 1;
+    // The cell's extreme draws (where each bound is tight) and random ones.
+    std::vector<std::uint64_t> draws = {first, first + 1, last - 1, last};
+    for (int i = 0; i < 4; ++i) draws.push_back(first + (rng.next() >> (64 - cell_bits)));
+    double active, inactive, accept, reject;
+    unpack_bracket(b.heat_bath[std::size_t(c)], &active, &inactive);
+    unpack_bracket(b.metropolis[std::size_t(c)], &accept, &reject);
+    CHECK(inactive < active);
+    CHECK(accept < reject);
+    for (std::uint64_t m : draws) {
+      CHECK((m >> cell_bits) == std::uint64_t(c));
+      for (double step : {0.0, 1e-12, 1e-3, 1.0}) {
+        if (std::isfinite(active)) {
+          const double x = step == 0.0 ? active : active + step * (1 + std::abs(active));
+          CHECK(AcceptanceTable::exact_heat_bath(x, m));
+          ++checked;
+        }
+        if (std::isfinite(inactive)) {
+          const double x = step == 0.0 ? inactive : inactive - step * (1 + std::abs(inactive));
+          CHECK(!AcceptanceTable::exact_heat_bath(x, m));
+          ++checked;
+        }
+        const double ya = step == 0.0 ? accept : accept - step * (1 + std::abs(accept));
+        CHECK(AcceptanceTable::exact_metropolis(ya, m));
+        if (std::isfinite(reject)) {
+          const double yr = step == 0.0 ? reject : reject + step * (1 + std::abs(reject));
+          CHECK(!AcceptanceTable::exact_metropolis(yr, m));
+          ++checked;
+        }
+      }
+    }
+  }
+  CHECK(checked > 90000);
+  // Undecided pairs (argument between the bounds) take the exact test; they must be rare for the
+  // brackets to be worth having (1024 cells: widths about 4/1024 in x near u = 1/2).
+  std::int64_t undecided = 0;
+  const std::int64_t pairs = 200000;
+  for (std::int64_t i = 0; i < pairs; ++i) {
+    const std::uint64_t m = rng.next() >> 11;
+    const double x = rng.uniform() * 12 - 6;
+    double active, inactive;
+    unpack_bracket(b.heat_bath[std::size_t(m >> cell_bits)], &active, &inactive);
+    undecided += !(x >= active || x <= inactive);
+  }
+  CHECK(double(undecided) / double(pairs) < 0.01);
 }
