@@ -16,9 +16,10 @@
 //   t-th output of its generator l, exactly what draw_lanes gives that chain alone.
 // * Uniform couplings (lattices) have their own groups of up to 64 chains
 //   (sampler_uniform_groups.hpp).
-// * Other models: fields and values stay in each chain's own arrays (a flipped chain updates
-//   its whole field vector, N contiguous doubles, as alone; an interleaved layout would touch all
-//   chains' fields on every flip); only the decision runs across the chains.
+// * Other models: fields and values stay in each chain's own arrays (an interleaved layout would
+//   touch all chains' fields on every flip); the decision runs across the chains. CSR: a flipped
+//   chain updates its fields at once, as alone. Dense: the flips of 16 positions are added to
+//   each chain's fields together at the block's end, in the same order (sampler_groups.inc).
 //
 // The kernels are compiled three times (sampler_groups_{generic,avx2,avx512}.cpp) from
 // sampler_groups.inc; the group_* functions below pick the widest copy the CPU runs.
