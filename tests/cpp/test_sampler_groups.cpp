@@ -3,7 +3,7 @@
 // samples, energies and counters must be the same bits in any group, with any group size (partly
 // filled groups, chains that stop one step before the others), on any thread count, across the
 // periodic recomputation of the fields (every 1024 sweeps). Models cover each kernel: dense
-// couplings (N = 13, and N = 141: several blocks of deferred field updates, two draw batches, a
+// couplings (N = 5 and 13, and N = 141: several blocks of deferred field updates, two draw batches, a
 // row tail), CSR couplings, uniform couplings with degree 2, 4, 6 and one above the byte-shuffle
 // table (degree 8: 17 levels, the portable loop), both conventions, heat bath and Metropolis,
 // sequential and coloured scans. Uniform couplings run in groups of up to 64 chains: every group size from 1
@@ -117,6 +117,7 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
     cases.push_back({"dense" + conv, random_dense(13, c, 3), "dense"});
     // Several blocks of deferred field updates, a row tail (N mod 8) and two draw chunks (128).
     cases.push_back({"dense 141" + conv, random_dense(141, c, 5), "dense"});
+    cases.push_back({"dense 5" + conv, random_dense(5, c, 7), "dense"});  // rows only in the tail
     cases.push_back({"csr" + conv, uneven_ring(21, c), "sparse"});
     cases.push_back({"uniform degree 2" + conv, ring(19, 1, 0.7, 0.2, c), "sparse"});
     cases.push_back({"uniform degree 4" + conv, ring(23, 2, 0.35, -0.1, c), "sparse"});
