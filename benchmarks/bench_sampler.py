@@ -179,6 +179,18 @@ def emit(name, rate, best_numpy, cpu=None, **extra):
     print(json.dumps(dict(row, **extra)), flush=True)
 
 
+def group_rows(model, h, J, chains, sweeps, best, np2, scan="sequential", tag=""):
+    """Lock-step group rows: `chains` chains on one thread (against the best numpy sampler,
+    best = (wall, cpu) rates) and twice as many on two threads (against numpy in 2 processes),
+    each running `sweeps` sweeps per chain on one thread, half that on two."""
+    r, d = spinfer_rate(h, J, sweeps, chains, 1, scan)
+    emit(f"{model} spinfer 1 thread, {chains} chains ({tag}one lock-step group)", r, best[0],
+         cpu=(d["cpu_rate"], best[1]), groups=d.get("lock_step_groups"))
+    r, d = spinfer_rate(h, J, sweeps // 2, 2 * chains, 2, scan)
+    emit(f"{model} spinfer 2 threads, {2 * chains} chains ({tag}lock-step groups) vs numpy 2 "
+         "processes", r, np2, groups=d.get("lock_step_groups"))
+
+
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="fewer sweeps (noisier)")
@@ -193,7 +205,6 @@ def main():
 
 
 def dense_rows(q, rng):
-
     # --- dense SK, N = 200 ---
     h, J = sk_model(200)
     ds = 5 if q else 20
@@ -216,13 +227,7 @@ def dense_rows(q, rng):
     emit("dense N=200 spinfer 2 threads (4 chains) vs numpy 2 processes", r2, np2,
          storage=d["storage"])
     # Lock-step groups: 8 chains per thread update the same unit together.
-    r8, d8 = spinfer_rate(h, J, sweeps // 8, 8, 1)
-    emit("dense N=200 spinfer 1 thread, 8 chains (one lock-step group)", r8, best,
-         cpu=(d8["cpu_rate"], bestc), groups=d8.get("lock_step_groups"))
-    r16, d = spinfer_rate(h, J, sweeps // 16, 16, 2)
-    emit("dense N=200 spinfer 2 threads, 16 chains (lock-step groups) vs numpy 2 processes", r16,
-         np2, groups=d.get("lock_step_groups"))
-
+    group_rows("dense N=200", h, J, 8, sweeps // 8, (best, bestc), np2)
 
 
 def lattice_rows(q, rng):
@@ -247,20 +252,12 @@ def lattice_rows(q, rng):
         r2, d = spinfer_rate(hl, Jl, sweeps // 2, 4, 2, scan)
         emit(f"lattice 64x64 spinfer 2 threads, 4 chains ({label}) vs numpy 2 processes", r2, npl2,
              storage=d["storage"])
-        r8, d = spinfer_rate(hl, Jl, sweeps // 8, 8, 1, scan)
-        emit(f"lattice 64x64 spinfer 1 thread, 8 chains ({label}, one lock-step group)", r8, bestl,
-             cpu=(d["cpu_rate"], bestlc), groups=d.get("lock_step_groups"))
-        r16, d = spinfer_rate(hl, Jl, sweeps // 16, 16, 2, scan)
-        emit(f"lattice 64x64 spinfer 2 threads, 16 chains ({label}, lock-step groups) vs numpy 2 "
-             "processes", r16, npl2, groups=d.get("lock_step_groups"))
+        group_rows("lattice 64x64", hl, Jl, 8, sweeps // 8, (bestl, bestlc), npl2, scan,
+                   f"{label}, ")
         # 64 chains per thread: 4 times the updates of the one-chain row, so the run lasts long
         # enough at these rates.
-        r64, d = spinfer_rate(hl, Jl, sweeps // 16, 64, 1, scan)
-        emit(f"lattice 64x64 spinfer 1 thread, 64 chains ({label}, one lock-step group)", r64, bestl,
-             cpu=(d["cpu_rate"], bestlc), groups=d.get("lock_step_groups"))
-        r128, d = spinfer_rate(hl, Jl, sweeps // 32, 128, 2, scan)
-        emit(f"lattice 64x64 spinfer 2 threads, 128 chains ({label}, lock-step groups) vs numpy 2 "
-             "processes", r128, npl2, groups=d.get("lock_step_groups"))
+        group_rows("lattice 64x64", hl, Jl, 64, sweeps // 16, (bestl, bestlc), npl2, scan,
+                   f"{label}, ")
 
 
 if __name__ == "__main__":

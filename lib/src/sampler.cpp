@@ -300,7 +300,7 @@ class Engine {
       }
     }
     // Recompute fields and energies now and then so rounding never accumulates.
-    if (++c.steps % 1024 == 0)
+    if (++c.steps % kRefreshEvery == 0)
       for (auto& r : c.replicas) refresh(r);
   }
 
@@ -469,9 +469,7 @@ class Engine {
       Replica& r = c.replicas[0];
       r.stale = true;
       r.E -= h0_ * double(a.dv[m]) + K_ * double(a.dv_S[m]);
-      c.slot_flips[0] += a.flips[m];
-      c.slot_updates[0] += N_;
-      if (++c.steps % 1024 == 0) refresh(r);
+      end_group_step(c, a.flips[m]);
     }
   }
 
@@ -481,45 +479,36 @@ class Engine {
     const unsigned all = (1u << n) - 1;
     GroupLanes saved;
     if (active != all) saved = g.lanes;  // chains that sit this step out keep their generators
-    std::int64_t flips[kGroupWidth] = {};
-    {
-      GroupGeneral a;
-      for (std::size_t m = 0; m < std::size_t(kGroupWidth); ++m) {
-        Replica* r = m < n ? &chains[g.members[m]].replicas[0] : nullptr;
-        a.v[m] = r ? r->v.data() : g.spare.data();
-        a.H[m] = r ? r->H.data() : g.spare.data();
-        a.E[m] = r ? r->E : 0.0;
-      }
-      a.active = active;
-      a.N = N_;
-      a.order = coloured_ ? order_.data() : nullptr;
-      if (couplings_.sparse) {
-        a.offsets = couplings_.offsets.data();
-        a.index = couplings_.index.data();
-        a.value = couplings_.value.data();
-      } else {
-        a.dense = couplings_.dense.data();
-      }
-      a.lo = lo_;
-      a.hi = hi_;
-      a.beta = betas_[0];
-      a.gibbs = gibbs_;
-      a.fused = fused_products_;
-      a.lanes = &g.lanes;
-      a.draws = g.draws.data();
-      group_general_sweep(a);
-      for (std::size_t m = 0; m < n; ++m) {
-        if (!(active >> m & 1)) continue;
-        chains[g.members[m]].replicas[0].E = a.E[m];
-        flips[m] = a.flips[m];
-      }
+    GroupGeneral a;
+    for (std::size_t m = 0; m < std::size_t(kGroupWidth); ++m) {
+      Replica* r = m < n ? &chains[g.members[m]].replicas[0] : nullptr;
+      a.v[m] = r ? r->v.data() : g.spare.data();
+      a.H[m] = r ? r->H.data() : g.spare.data();
+      a.E[m] = r ? r->E : 0.0;
     }
+    a.active = active;
+    a.N = N_;
+    a.order = coloured_ ? order_.data() : nullptr;
+    if (couplings_.sparse) {
+      a.offsets = couplings_.offsets.data();
+      a.index = couplings_.index.data();
+      a.value = couplings_.value.data();
+    } else {
+      a.dense = couplings_.dense.data();
+    }
+    a.lo = lo_;
+    a.hi = hi_;
+    a.beta = betas_[0];
+    a.gibbs = gibbs_;
+    a.fused = fused_products_;
+    a.lanes = &g.lanes;
+    a.draws = g.draws.data();
+    group_general_sweep(a);
     for (std::size_t m = 0; m < n; ++m) {
+      Chain& c = chains[g.members[m]];
       if (active >> m & 1) {
-        Chain& c = chains[g.members[m]];
-        c.slot_flips[0] += flips[m];
-        c.slot_updates[0] += N_;
-        if (++c.steps % 1024 == 0) refresh(c.replicas[0]);
+        c.replicas[0].E = a.E[m];
+        end_group_step(c, a.flips[m]);
       } else {
         for (std::size_t w = 0; w < 4; ++w)
           for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.lanes.s[w][l][m] = saved.s[w][l][m];
@@ -528,6 +517,17 @@ class Engine {
   }
 
  private:
+  /// Steps between recomputations of a chain's fields and energies (rounding never accumulates).
+  static constexpr std::int64_t kRefreshEvery = 1024;
+
+  /// A group member's counters after one group step (one temperature, one replica): what step()
+  /// records for it.
+  void end_group_step(Chain& c, std::int64_t flips) const {
+    c.slot_flips[0] += flips;
+    c.slot_updates[0] += N_;
+    if (++c.steps % kRefreshEvery == 0) refresh(c.replicas[0]);
+  }
+
   void refresh(Replica& r) const {
     values(r);
     if (uniform_ && r.packed) {
@@ -632,8 +632,7 @@ class Engine {
       for (std::int64_t j = 0; j < d; ++j) S += x[nb[j * n + i]];
       const std::int64_t old = x[i];
       const std::int64_t level = (kGibbs ? 0 : levels * std::int64_t(old == hi)) + S + d;
-      const auto bits = std::uint32_t(m[i >> 2] >> (16 * (i & 3))) & 0xffff;
-      const std::int64_t pass = uniform_pass(bits, high[level], low[level], c.tie);
+      const std::int64_t pass = uniform_pass(draw_piece(m[i >> 2], i), high[level], low[level], c.tie);
       const std::int64_t next = kGibbs ? lo + pass * (hi - lo) : old + pass * (both - 2 * old);
       const std::int64_t dv = next - old;
       x[i] = std::int32_t(next);

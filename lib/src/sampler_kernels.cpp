@@ -56,8 +56,7 @@ void mark_unequal(const std::int8_t* __restrict x, std::int8_t value, const std:
 
 namespace {
 
-template <typename Word>
-[[gnu::always_inline]] inline void step_lanes(Lanes& g, Word* out, std::int64_t n) {
+[[gnu::always_inline]] inline void step_lanes(Lanes& g, std::uint64_t* out, std::int64_t n) {
   typedef std::uint64_t v8 __attribute__((vector_size(64)));
   v8 s0, s1, s2, s3;
   std::memcpy(&s0, g.s[0], 64);
@@ -65,16 +64,9 @@ template <typename Word>
   std::memcpy(&s2, g.s[2], 64);
   std::memcpy(&s3, g.s[3], 64);
   for (std::int64_t i = 0; i < n; i += 8) {
-    const v8 x = s1 * 5;
-    const v8 result = ((x << 7) | (x >> 57)) * 9;
-    const v8 t = s1 << 17;
-    s2 ^= s0;
-    s3 ^= s1;
-    s1 ^= s2;
-    s0 ^= s3;
-    s2 ^= t;
-    s3 = (s3 << 45) | (s3 >> 19);
-    std::memcpy(out + i * (8 / std::int64_t(sizeof(Word))), &result, 64);
+    v8 result;
+    xoshiro256ss_step(s0, s1, s2, s3, result);
+    std::memcpy(out + i, &result, 64);
   }
   std::memcpy(g.s[0], &s0, 64);
   std::memcpy(g.s[1], &s1, 64);
@@ -163,9 +155,6 @@ SPINFER_WIDE_CLONES
 void draw_lanes(Lanes& g, std::uint64_t* out, std::int64_t n) { step_lanes(g, out, n); }
 
 SPINFER_WIDE_CLONES
-void draw_lanes(Lanes& g, std::uint32_t* out, std::int64_t n) { step_lanes(g, out, n); }
-
-SPINFER_WIDE_CLONES
 void update_uniform_colour(const UniformColour& a, UniformSums& sums) {
   if (a.gibbs ? colour_by_degree<true>(a, sums) : colour_by_degree<false>(a, sums)) return;
   // Other degrees: the same decisions, one position at a time.
@@ -191,7 +180,7 @@ std::int64_t uniform_ties() { return ties_settled.load(std::memory_order_relaxed
 void count_uniform_tie() { ties_settled.fetch_add(1, std::memory_order_relaxed); }
 
 void split_pieces(const std::uint64_t* words, std::uint16_t* pieces, std::int64_t n) {
-  for (std::int64_t j = 0; j < n; ++j) pieces[j] = std::uint16_t(words[j >> 2] >> (16 * (j & 3)));
+  for (std::int64_t j = 0; j < n; ++j) pieces[j] = draw_piece(words[j >> 2], j);
 }
 
 bool AcceptanceTable::exact_heat_bath(double x, std::uint64_t m) {

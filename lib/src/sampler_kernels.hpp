@@ -13,6 +13,8 @@
 #include <cstdint>
 #include <vector>
 
+#include "spinfer/rng.hpp"
+
 namespace spinfer::detail {
 
 /// y[j] += a x[j] for j in [0, n).
@@ -39,8 +41,6 @@ struct Lanes {
 
 /// Fills out[0, n) (n rounded up to a multiple of 8: `out` needs room for that) with random bits.
 void draw_lanes(Lanes& g, std::uint64_t* out, std::int64_t n);
-/// The same bits as 32-bit words: draw i is out[2i] (low half), out[2i + 1] (high half).
-void draw_lanes(Lanes& g, std::uint32_t* out, std::int64_t n);
 
 /// The acceptance tests of the single-unit updates, decided by brackets from a table:
 ///   heat bath   active iff u (1 + exp(-x)) < 1        (x = beta (hi - lo) H_k)
@@ -130,16 +130,9 @@ std::uint64_t metropolis_threshold(double y);
 
 /// Top 37 bits of the next output of the xoshiro256** generator with state s[0..3] (rng.hpp).
 inline std::uint64_t tie_bits(std::uint64_t* s) {
-  const std::uint64_t x = s[1] * 5;
-  const std::uint64_t result = ((x << 7) | (x >> 57)) * 9;
-  const std::uint64_t t = s[1] << 17;
-  s[2] ^= s[0];
-  s[3] ^= s[1];
-  s[1] ^= s[2];
-  s[0] ^= s[3];
-  s[2] ^= t;
-  s[3] = (s[3] << 45) | (s[3] >> 19);
-  return result >> 27;
+  std::uint64_t out;
+  xoshiro256ss_step(s[0], s[1], s[2], s[3], out);
+  return out >> 27;
 }
 
 /// Ties settled so far by any uniform-coupling kernel in this process (relaxed counter, touched
@@ -159,7 +152,10 @@ inline bool uniform_pass(std::uint32_t d, std::uint32_t high, std::uint64_t low,
 void split_thresholds(const std::vector<std::uint64_t>& t, std::vector<std::uint32_t>* high,
                       std::vector<std::uint64_t>* low);
 
-/// The update's 16 bits, as above: pieces[j] = bits [16 (j % 4), 16 (j % 4) + 16) of words[j / 4].
+/// Update j's 16 bits, as above, from word j / 4 of the batch: bits [16 (j % 4), 16 (j % 4) + 16).
+inline std::uint16_t draw_piece(std::uint64_t word, std::int64_t j) { return std::uint16_t(word >> (16 * (j & 3))); }
+
+/// pieces[j] = draw_piece(words[j / 4], j) for j in [0, n).
 void split_pieces(const std::uint64_t* words, std::uint16_t* pieces, std::int64_t n);
 
 // ---- uniform couplings, one colour at a time ---------------------------------------------------

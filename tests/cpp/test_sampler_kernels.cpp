@@ -167,7 +167,8 @@ TEST_CASE("draw brackets: an argument beyond a cell's bound decides as the exact
   }
   CHECK(checked > 90000);
   // Undecided pairs (argument between the bounds) take the exact test; they must be rare for the
-  // brackets to be worth having (1024 cells: widths about 4/1024 in x near u = 1/2).
+  // brackets to be worth having (1024 cells: widths about 4/1024 in x near u = 1/2). The 1% is our
+  // own cost bound, not an accuracy claim: every decision is exact whatever this fraction.
   std::int64_t undecided = 0;
   const std::int64_t pairs = 200000;
   for (std::int64_t i = 0; i < pairs; ++i) {

@@ -23,6 +23,27 @@ inline std::uint64_t splitmix64(std::uint64_t& state) {
   return z ^ (z >> 31);
 }
 
+/// One xoshiro256** step on the state words s0..s3; the output goes to `out` (a reference rather
+/// than a return value, so no wide-vector return crosses a function boundary). Word is std::uint64_t
+/// or a GCC vector of them (then every lane is its own generator): the sampler's vectorised
+/// generators use the same step as Rng. The multiplications by 5 and 9 are written as shifts and
+/// adds (the same value modulo 2^64; vector 64-bit multiplies are slow). Always inlined: the
+/// sampler compiles it into one copy per instruction set, which must never share an
+/// out-of-line instance.
+template <typename Word>
+[[gnu::always_inline]] inline void xoshiro256ss_step(Word& s0, Word& s1, Word& s2, Word& s3, Word& out) {
+  const Word x = (s1 << 2) + s1;
+  const Word r = (x << 7) | (x >> 57);
+  out = (r << 3) + r;
+  const Word t = s1 << 17;
+  s2 ^= s0;
+  s3 ^= s1;
+  s1 ^= s2;
+  s0 ^= s3;
+  s2 ^= t;
+  s3 = (s3 << 45) | (s3 >> 19);
+}
+
 class Rng {
  public:
   explicit Rng(std::uint64_t seed = 0, std::uint64_t stream = 0) {
@@ -37,15 +58,9 @@ class Rng {
 
   /// Next 64 random bits.
   std::uint64_t next() {
-    const std::uint64_t result = rotl(s_[1] * 5, 7) * 9;
-    const std::uint64_t t = s_[1] << 17;
-    s_[2] ^= s_[0];
-    s_[3] ^= s_[1];
-    s_[1] ^= s_[2];
-    s_[0] ^= s_[3];
-    s_[2] ^= t;
-    s_[3] = rotl(s_[3], 45);
-    return result;
+    std::uint64_t out;
+    xoshiro256ss_step(s_[0], s_[1], s_[2], s_[3], out);
+    return out;
   }
 
   /// Uniform double in [0, 1) with 53 random bits.
@@ -68,7 +83,6 @@ class Rng {
   }
 
  private:
-  static std::uint64_t rotl(std::uint64_t x, int k) { return (x << k) | (x >> (64 - k)); }
   std::uint64_t s_[4];
 };
 
