@@ -9,7 +9,6 @@
 
 #include "signals.hpp"
 #include "spinfer/atomic_file.hpp"
-#include "spinfer/checksum.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/version.hpp"
 
@@ -51,7 +50,7 @@ void add_checkpoint_options(CLI::App& sub, CheckpointArgs& args) {
 nlohmann::json make_fingerprint(const std::vector<std::pair<std::string, std::string>>& inputs,
                                 nlohmann::json settings) {
   nlohmann::json files = nlohmann::json::object();
-  for (const auto& [name, path] : inputs) files[name] = file_fnv1a64(path);
+  for (const auto& [name, path] : inputs) files[name] = input_fnv1a64(path);
   return {{"version", spinfer::version()}, {"inputs", files}, {"settings", std::move(settings)}};
 }
 

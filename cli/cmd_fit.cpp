@@ -7,7 +7,6 @@
 #include "checkpoint.hpp"
 #include "commands.hpp"
 #include "shards.hpp"
-#include "spinfer/checksum.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/fit.hpp"
 #include "spinfer/io.hpp"
@@ -41,7 +40,7 @@ nlohmann::json fit_settings(const FitArgs& a) {
 // Everything that must agree between the shards of one fit (checked by `spinfer merge`).
 nlohmann::json shard_manifest(const Context& ctx, const FitArgs& a, const SpinMatrix& data,
                               ShardChoice shard) {
-  return {{"input", {{"path", a.data}, {"fnv1a64", file_fnv1a64(a.data)}}},
+  return {{"input", {{"path", a.data}, {"fnv1a64", input_fnv1a64(a.data)}}},
           {"settings",
            {{"method", a.method}, {"variant", a.variant.empty() ? "per-variable" : a.variant},
             {"l1", a.l1}, {"l2", a.l2}, {"convention", a.convention}, {"member", a.member},

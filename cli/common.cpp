@@ -4,6 +4,7 @@
 #include <ctime>
 #include <filesystem>
 #include <fstream>
+#include <map>
 #include <memory>
 #include <unistd.h>
 #include <cstdio>
@@ -65,10 +66,16 @@ spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string&
   };
 }
 
+const std::string& input_fnv1a64(const std::string& path) {
+  static std::map<std::string, std::string> known;  // the CLI asks from one thread
+  auto it = known.find(path);
+  if (it == known.end()) it = known.emplace(path, file_fnv1a64(path)).first;
+  return it->second;
+}
 
 nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string>& inputs) {
   nlohmann::json files = nlohmann::json::array();
-  for (const auto& f : inputs) files.push_back({{"path", f}, {"fnv1a64", file_fnv1a64(f)}});
+  for (const auto& f : inputs) files.push_back({{"path", f}, {"fnv1a64", input_fnv1a64(f)}});
   return {{"command_line", ctx.argv}, {"version", spinfer::version()}, {"seed", ctx.common.seed},
           {"threads", ctx.common.threads}, {"ranks", ctx.ranks()}, {"inputs", files}};
 }

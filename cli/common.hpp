@@ -61,6 +61,12 @@ void print_summary(const std::string& json_line);
 /// and stops the computation once a stop signal is pending (installs the handlers; signals.hpp).
 spinfer::ProgressCallback progress_logger(const Context& ctx, const std::string& stage);
 
+/// FNV-1a 64 of an input file, read once per process: a fit asks for its data file's checksum
+/// for the checkpoint fingerprint, the provenance and each shard manifest, and the file can be
+/// gigabytes. (Inputs do not change during a run; if they did, the run's results would not
+/// match any one checksum anyway.)
+const std::string& input_fnv1a64(const std::string& path);
+
 /// Provenance for outputs: command line, version, seed, threads, MPI ranks, and a checksum of
 /// each input.
 nlohmann::json provenance_json(const Context& ctx, const std::vector<std::string>& inputs);

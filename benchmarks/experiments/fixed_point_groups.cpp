@@ -7,14 +7,16 @@
 // couplings are rounded once to integers in units of 2^-s (s the largest with every row's
 // |h_k| + span sum_j |J_kj| below 2^30) and fields are exact int32 sums: any order gives the same
 // field, so a block's flips can be added in whatever order is fastest, 16 chains fit one AVX-512
-// register, and a field row is half the bytes. Decisions: the draw's top 10 bits pick a cell whose
-// integer bounds (from the logit of the cell's ends, widened by 2^-30 (1 + |bound|) plus one unit)
-// decide unless the field lies between them; then the exact test of the library
-// (u (1 + exp(-x)) < 1, x = beta span H 2^-s) decides.
+// register, and a field row is half the bytes. Decisions: the draw's top 10 bits pick a cell of the
+// library's DrawBrackets (argument bounds), turned into integer field bounds (one unit further
+// out); they decide unless the field lies between them, and then the library's exact test
+// AcceptanceTable::exact_heat_bath (x = beta span H 2^-s) decides.
 //
-// Build and run (AVX-512 machine; from the repository root):
-//   g++ -O3 -march=native -std=c++17 -ffp-contract=off -I lib/include
-//       benchmarks/experiments/fixed_point_groups.cpp -o /tmp/fixed_point_groups   (one line)
+// Build and run (AVX-512 machine; from the repository root, after the build of DEVELOPERS.md
+// "Build", which makes build/dev/libspinfer_core.a):
+//   g++ -O3 -march=native -std=c++17 -ffp-contract=off -I lib/include -I lib/src
+//       benchmarks/experiments/fixed_point_groups.cpp build/dev/libspinfer_core.a
+//       -o /tmp/fixed_point_groups   (one line)
 //   /tmp/fixed_point_groups [sweeps] [draw16]
 // It first checks 20 sweeps of the 16 chains against a plain one-chain-at-a-time reference on the
 // same draws (64-bit draws; every field and value must agree), then prints JSON lines of updates
@@ -38,14 +40,14 @@
 #include <string>
 #include <vector>
 
+#include "draw_brackets.hpp"
+#include "sampler_kernels.hpp"
 #include "spinfer/rng.hpp"
 
 namespace {
 
-constexpr int kLanes = 16, kBlock = 16, kChunk = 64, kCells = 1024;
+constexpr int kLanes = 16, kBlock = 16, kChunk = 64, kCells = spinfer::detail::DrawBrackets::kCells;
 typedef std::uint64_t vu8 __attribute__((vector_size(64)));
-
-bool exact_heat_bath(double x, std::uint64_t m) { return double(m) * 0x1.0p-53 * (1.0 + std::exp(-x)) < 1.0; }
 
 template <class T>
 T* zeros(std::size_t n) {
@@ -79,12 +81,6 @@ void draw_batch(Group& a, long words) {
       }
       a.s[0][g][h] = s0, a.s[1][g][h] = s1, a.s[2][g][h] = s2, a.s[3][g][h] = s3;
     }
-}
-
-std::uint64_t tie_bits(std::uint64_t* s) {
-  std::uint64_t out;
-  spinfer::xoshiro256ss_step(s[0], s[1], s[2], s[3], out);
-  return out >> 27;
 }
 
 // One heat-bath sweep of all 16 chains in unit order. `given`: draws of the sweep ([unit][lane],
@@ -124,8 +120,8 @@ void sweep(Group& a, const std::uint64_t* given) {
           for (unsigned u = open; u; u &= u - 1) {
             const int l = __builtin_ctz(u);
             ++a.exact;
-            const std::uint64_t m = kDraw16 ? ((d[l] >> (16 * (pos & 3))) & 0xffff) << 37 | tie_bits(a.tie[l]) : d[l] >> 11;
-            if (exact_heat_bath(a.c * double(h[l]), m)) pass = __mmask16(pass | (1u << l));
+            const std::uint64_t m = kDraw16 ? ((d[l] >> (16 * (pos & 3))) & 0xffff) << 37 | spinfer::detail::tie_bits(a.tie[l]) : d[l] >> 11;
+            if (spinfer::detail::AcceptanceTable::exact_heat_bath(a.c * double(h[l]), m)) pass = __mmask16(pass | (1u << l));
           }
         }
         std::int8_t* v = a.V + long(b0 + q) * kLanes;
@@ -163,7 +159,7 @@ void sweep(Group& a, const std::uint64_t* given) {
 // The same sweep for one lane, one unit at a time, straight from the definition.
 void reference_sweep(const Group& a, std::int32_t* H, std::int8_t* v, const std::uint64_t* draws, int l) {
   for (int k = 0; k < a.N; ++k) {
-    const std::int8_t next = exact_heat_bath(a.c * double(H[k]), draws[long(k) * kLanes + l] >> 11) ? 1 : -1;
+    const std::int8_t next = spinfer::detail::AcceptanceTable::exact_heat_bath(a.c * double(H[k]), draws[long(k) * kLanes + l] >> 11) ? 1 : -1;
     if (next == v[k]) continue;
     const std::int32_t* col = a.J + long(next > 0 ? k : a.N + k) * a.NP;
     for (int i = 0; i < a.NP; ++i) H[i] += col[i];
@@ -207,11 +203,14 @@ int main(int argc, char** argv) {
       a.J[std::size_t(N + k) * a.NP + i] = -a.J[std::size_t(k) * a.NP + i];
     }
   a.c = beta * span * std::ldexp(1.0, -scale);
+  // Argument bounds x >= active / x <= inactive of each draw cell, as field bounds; a field in
+  // between takes the exact test.
+  const auto& brackets = spinfer::detail::draw_brackets().heat_bath;
   for (int cell = 0; cell < kCells; ++cell) {
-    const double lo = std::ldexp(double(cell), -10), hi = std::ldexp(double(cell + 1), -10);
-    const double x_hi = hi >= 1 ? INFINITY : std::log(hi / (1 - hi)), x_lo = lo <= 0 ? -INFINITY : std::log(lo / (1 - lo));
-    a.up[cell] = std::isinf(x_hi) ? INT32_MAX : std::int32_t(std::ceil((x_hi + 0x1p-30 * (1 + std::fabs(x_hi))) / a.c)) + 1;
-    a.down[cell] = std::isinf(x_lo) ? INT32_MIN : std::int32_t(std::floor((x_lo - 0x1p-30 * (1 + std::fabs(x_lo))) / a.c)) - 1;
+    double active, inactive;
+    spinfer::detail::unpack_bracket(brackets[std::size_t(cell)], &active, &inactive);
+    a.up[cell] = std::isinf(active) ? INT32_MAX : std::int32_t(std::ceil(active / a.c)) + 1;
+    a.down[cell] = std::isinf(inactive) ? INT32_MIN : std::int32_t(std::floor(inactive / a.c)) - 1;
   }
   spinfer::Rng rng(42);
   for (auto& word : a.s)
