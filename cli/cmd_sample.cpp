@@ -55,6 +55,7 @@ int run_sample(const Context& ctx, const SampleArgs& a) {
                             {"thin", d.thin},
                             {"rhat_energy", d.rhat_energy},
                             {"ess_energy", d.ess_energy},
+                            {"field_resolution", d.field_resolution},
                             {"warnings", d.warnings},
                             {"provenance", provenance_json(ctx, {a.model})}};
   print_summary(summary.dump());

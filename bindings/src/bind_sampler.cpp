@@ -108,6 +108,7 @@ py::dict diagnostics_dict(const SamplerDiagnostics& d) {
   r["seconds"] = d.seconds;
   r["updates"] = d.updates;
   r["lock_step_groups"] = d.lock_step_groups;
+  r["field_resolution"] = d.field_resolution;
   r["warnings"] = d.warnings;
   return r;
 }

@@ -170,6 +170,7 @@ CheckResult check_model(const IsingModel& model, const SpinMatrix& data, const C
                              {"rhat_magnetisation", set.diagnostics.rhat_magnetisation},
                              {"burn_in", set.diagnostics.burn_in},
                              {"thin", set.diagnostics.thin},
+                             {"field_resolution", set.diagnostics.field_resolution},
                              {"warnings", set.diagnostics.warnings}};
     m = flat_statistics(samples, conv, r.pairs, r.triples, options.threads);
     // Batch means: statistics of 20 contiguous batches; se = sd / sqrt(batches).

@@ -18,7 +18,9 @@
 
 #include "sampler_engine.hpp"
 #include "aligned_vector.hpp"
+#include "integer_fields.hpp"
 #include "sampler_groups.hpp"
+#include "sampler_integer_groups.hpp"
 #include "sampler_uniform_groups.hpp"
 #include "sampler_kernels.hpp"
 #include "spinfer/errors.hpp"
@@ -117,6 +119,13 @@ struct Replica {
   std::int64_t lane = 0;
   Group* group = nullptr;
   double E = 0;
+  // Dense couplings with integer fields (integer_fields.hpp): fields by scan position in units of
+  // 2^-s, and the energy in units of 2^-(s+1) (E is its double value); H is not used then.
+  AlignedVector<std::int32_t> Hq;
+  std::int64_t E2 = 0;
+  // In an integer-field group the values live at by_position[p * 16 + lane] (the group's
+  // storage); values() rewrites v from there when v_behind.
+  const std::int8_t* by_position = nullptr;
 };
 
 struct Chain {
@@ -157,6 +166,11 @@ struct Group {
   std::vector<std::int8_t> unpacked;  // values by lane (group_uniform_unpack)
   std::vector<UniformWords> words;
   std::vector<std::uint16_t> pieces;
+  // Integer fields (sampler_integer_groups.hpp): the members' generators (tie streams in `ties`),
+  // their values by position [N][16], and NP readable fields for the empty lanes.
+  std::unique_ptr<IntegerLanes> integer_lanes;
+  std::vector<std::int8_t> lane_values;
+  AlignedVector<std::int32_t> spare_fields;
 };
 
 class Engine {
@@ -203,6 +217,14 @@ class Engine {
     fused_products_ = !c.sparse && (hi_ - lo_ == 1.0 || hi_ - lo_ == 2.0) &&
                       std::all_of(c.dense.begin(), c.dense.end(),
                                           [](double x) { return std::abs(x) < std::ldexp(1.0, 1000); });
+    // Dense couplings: exact integer fields unless the model needs a resolution coarser than
+    // 2^-20 (then the double kernels run).
+    if (!c.sparse) {
+      const std::vector<std::int32_t> none;
+      integer_ = quantise(h_, c.dense.data(), N_, std::int32_t(lo_), std::int32_t(hi_), coloured_ ? order_ : none);
+      if (integer_)
+        for (double beta : betas_) integer_bounds_.push_back(integer_bounds(*integer_, beta, gibbs_));
+    }
     if (uniform_) {
       K_ = c.value[0];
       h0_ = h_(0);
@@ -270,6 +292,8 @@ class Engine {
       c.level_thresholds = level_thresholds();
       split_thresholds(c.level_thresholds, &c.threshold_high, &c.threshold_low);
       c.pieces.assign(std::size_t(N_), 0);
+    }
+    if (uniform_ || integer_) {
       // The tie stream: splitmix64 of one output, so its four words are never all zero.
       std::uint64_t x = c.rng.next();
       for (auto& word : c.tie) word = splitmix64(x);
@@ -299,8 +323,9 @@ class Engine {
         ++c.swap_accepts[s];
       }
     }
-    // Recompute fields and energies now and then so rounding never accumulates.
-    if (++c.steps % kRefreshEvery == 0)
+    // Recompute fields and energies now and then so rounding never accumulates (integer fields
+    // are exact).
+    if (++c.steps % kRefreshEvery == 0 && !integer_)
       for (auto& r : c.replicas) refresh(r);
   }
 
@@ -324,6 +349,14 @@ class Engine {
   /// Sets the replica to the given active bits (N of them) and recomputes its fields and energy.
   /// The replica's unit values (by unit), brought up to date from the uniform kernel's copy.
   const std::vector<double>& values(const Replica& r) const {
+    if (r.by_position) {
+      if (r.v_behind) {
+        const std::int32_t* unit = integer_->unit.data();
+        for (std::int64_t p = 0; p < N_; ++p) r.v[std::size_t(unit[p])] = double(r.by_position[p * kIntegerWidth + r.lane]);
+        r.v_behind = false;
+      }
+      return r.v;
+    }
     if (r.packed) {
       const std::int8_t* from = unpacked(r);
       if (r.v_behind) {
@@ -371,7 +404,9 @@ class Engine {
 
   /// Whether chains can run in lock-step groups: one temperature (no replica exchanges, whose
   /// outcomes differ between chains) and a scan order shared by all chains (not "random").
-  bool lock_step() const { return slots() == 1 && !random_scan_; }
+  /// Integer fields: only where the CPU runs the integer-field group kernel (AVX-512); elsewhere
+  /// those chains run alone.
+  bool lock_step() const { return slots() == 1 && !random_scan_ && (!integer_ || group_integer_available()); }
 
   /// Smallest group worth forming (measured on dense N = 200 and a 64 x 64 lattice): a group's
   /// step costs about the same with one chain as with a full group, and the uniform coloured
@@ -381,8 +416,10 @@ class Engine {
   std::int64_t min_group() const { return uniform_ ? (coloured_ ? 4 : 2) : 3; }
 
   /// Most chains in one group.
-  std::int64_t group_width() const { return uniform_ ? kUniformWidth : kGroupWidth; }
+  std::int64_t group_width() const { return uniform_ ? kUniformWidth : integer_ ? kIntegerWidth : kGroupWidth; }
   bool uniform() const { return uniform_; }
+  /// 2^-s with integer fields (the sampled model is the rounded one), else 0.
+  double field_resolution() const { return integer_ ? integer_->resolution() : 0.0; }
 
   /// Takes the chains chains[members] into a group: their generators and (uniform couplings)
   /// values move into the group's storage; each chain's bits continue unchanged.
@@ -414,6 +451,24 @@ class Engine {
         for (std::int64_t i = 0; i < N_; ++i)
           r.packed[i].v[r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
         r.small.clear();
+      }
+    } else if (integer_) {
+      g.integer_lanes = std::make_unique<IntegerLanes>();
+      g.ties.assign(std::size_t(kIntegerWidth), {0, 0, 0, 0});
+      g.lane_values.assign(std::size_t(N_ * kIntegerWidth), std::int8_t(lo_));
+      g.draws.assign(std::size_t(kIntegerChunk / 4 * kIntegerWidth), 0);
+      g.spare_fields.assign(std::size_t(integer_->NP), 0);
+      for (std::size_t m = 0; m < g.members.size(); ++m) {
+        Chain& c = chains[g.members[m]];
+        for (std::size_t w = 0; w < 4; ++w) {
+          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.integer_lanes->s[w][l][m] = c.lanes.s[w][l];
+          g.ties[m][w] = c.tie[w];
+        }
+        Replica& r = c.replicas[0];
+        for (std::int64_t p = 0; p < N_; ++p)
+          g.lane_values[std::size_t(p * kIntegerWidth) + m] = std::int8_t(r.v[std::size_t(integer_->unit[std::size_t(p)])]);
+        r.by_position = g.lane_values.data();
+        r.lane = std::int64_t(m);
       }
     } else {
       const auto W = std::size_t(kGroupWidth);
@@ -475,6 +530,7 @@ class Engine {
 
   /// One step of the group's chains in `active` (bit m: member m): what step() does for each.
   void step_group(Group& g, std::vector<Chain>& chains, unsigned active) const {
+    if (integer_) return step_integer_group(g, chains, active);
     const std::size_t n = g.members.size();
     const unsigned all = (1u << n) - 1;
     GroupLanes saved;
@@ -517,6 +573,51 @@ class Engine {
   }
 
  private:
+  /// step_group for integer fields.
+  void step_integer_group(Group& g, std::vector<Chain>& chains, unsigned active) const {
+    const std::size_t n = g.members.size();
+    const unsigned all = (1u << n) - 1;
+    std::unique_ptr<IntegerLanes> saved;
+    if (active != all) saved = std::make_unique<IntegerLanes>(*g.integer_lanes);  // sitting out
+    const IntegerModel& im = *integer_;
+    const IntegerBounds& b = integer_bounds_[0];
+    GroupInteger a;
+    a.N = N_;
+    a.NP = im.NP;
+    a.lo = std::int8_t(im.lo);
+    a.hi = std::int8_t(im.hi);
+    a.columns = im.columns.data();
+    a.unit = im.unit.data();
+    a.pass = b.pass;
+    a.fail = b.fail;
+    a.c = b.c;
+    a.gibbs = b.gibbs;
+    for (std::size_t m = 0; m < std::size_t(kIntegerWidth); ++m) {
+      Replica* r = m < n ? &chains[g.members[m]].replicas[0] : nullptr;
+      a.H[m] = r ? r->Hq.data() : g.spare_fields.data();
+      a.E2[m] = r ? r->E2 : 0;
+    }
+    a.V = g.lane_values.data();
+    a.active = active;
+    a.lanes = g.integer_lanes.get();
+    a.ties = reinterpret_cast<std::uint64_t(*)[4]>(g.ties.data());
+    a.draws = g.draws.data();
+    group_integer_sweep(a);
+    for (std::size_t m = 0; m < n; ++m) {
+      Chain& c = chains[g.members[m]];
+      if (active >> m & 1) {
+        Replica& r = c.replicas[0];
+        r.E2 = a.E2[m];
+        r.E = im.energy(r.E2);
+        r.v_behind = true;
+        end_group_step(c, a.flips[m]);
+      } else {
+        for (std::size_t w = 0; w < 4; ++w)
+          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.integer_lanes->s[w][l][m] = saved->s[w][l][m];
+      }
+    }
+  }
+
   /// Steps between recomputations of a chain's fields and energies (rounding never accumulates).
   static constexpr std::int64_t kRefreshEvery = 1024;
 
@@ -525,11 +626,17 @@ class Engine {
   void end_group_step(Chain& c, std::int64_t flips) const {
     c.slot_flips[0] += flips;
     c.slot_updates[0] += N_;
-    if (++c.steps % kRefreshEvery == 0) refresh(c.replicas[0]);
+    if (++c.steps % kRefreshEvery == 0 && !integer_) refresh(c.replicas[0]);
   }
 
   void refresh(Replica& r) const {
     values(r);
+    if (integer_) {
+      r.Hq.resize(std::size_t(integer_->NP));
+      integer_fields(*integer_, r.v.data(), r.Hq.data(), &r.E2);
+      r.E = integer_->energy(r.E2);
+      return;
+    }
     if (uniform_ && r.packed) {
       for (std::int64_t i = 0; i < N_; ++i)
         r.packed[i].v[r.lane] = std::int8_t(r.v[std::size_t(order_[std::size_t(i)])]);
@@ -557,6 +664,13 @@ class Engine {
 
   std::int64_t sweep(Replica& r, double beta, std::size_t slot, Chain& c) const {
     // Dispatch once per sweep so the inner loop is specialised.
+    if (integer_) {
+      draw_lanes(c.lanes, c.draws.data(), (N_ + 3) / 4);
+      const std::int64_t flips = integer_sweep(*integer_, integer_bounds_[slot], r.v.data(), r.Hq.data(), &r.E2,
+                                               c.draws.data(), c.tie, random_scan_ ? &c.rng : nullptr);
+      r.E = integer_->energy(r.E2);
+      return flips;
+    }
     if (uniform_) return gibbs_ ? sweep_uniform<true>(r, slot, c) : sweep_uniform<false>(r, slot, c);
     if (coloured_) {
       if (couplings_.sparse)
@@ -695,6 +809,8 @@ class Engine {
   double lo_, hi_;
   bool gibbs_, random_scan_, coloured_, uniform_ = false;
   bool fused_products_ = false;   // dense: see GroupGeneral::fused
+  std::optional<IntegerModel> integer_;        // dense couplings with integer fields
+  std::vector<IntegerBounds> integer_bounds_;  // by ladder slot
   double K_ = 0, h0_ = 0;         // uniform couplings: the one coupling and field value
   std::int64_t dmax_ = 0;         // uniform couplings: the largest degree
   std::string start_;
@@ -952,6 +1068,7 @@ EngineResult run_engine(const IsingModel& model, const SamplerOptions& o, const 
   d.scan = o.scan;
   d.storage = engine.couplings().sparse ? "sparse" : "dense";
   d.coupling_density = engine.couplings().density;
+  d.field_resolution = engine.field_resolution();
   d.units = N;
   d.chains = C;
   d.temperature = rq.ladder[target];

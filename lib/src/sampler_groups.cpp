@@ -1,12 +1,14 @@
 // Picks the copy of the lock-step kernels (sampler_groups.inc, sampler_uniform_groups.inc) that
 // the CPU runs.
 #include "sampler_groups.hpp"
+#include "sampler_integer_groups.hpp"
 #include "sampler_uniform_groups.hpp"
 
 #include "draw_brackets.hpp"
 
 #include <atomic>
 #include <cstring>
+#include <stdexcept>
 
 namespace spinfer::detail {
 
@@ -18,6 +20,7 @@ void group_uniform_sweep_avx2(GroupUniform&);
 void group_uniform_unpack_avx2(const UniformLine*, std::int64_t, std::int8_t*, std::int64_t);
 void group_general_sweep_avx2(GroupGeneral&);
 void group_uniform_sweep_avx512(GroupUniform&);
+void group_integer_sweep_avx512(GroupInteger&);
 void group_uniform_unpack_avx512(const UniformLine*, std::int64_t, std::int8_t*, std::int64_t);
 void group_general_sweep_avx512(GroupGeneral&);
 #endif
@@ -80,6 +83,22 @@ void group_general_sweep(GroupGeneral& a) {
 #endif
     default: return group_general_sweep_generic(a);
   }
+}
+
+bool group_integer_available() {
+#if defined(__x86_64__) && defined(__GNUC__)
+  return cpu_isa() == Isa::avx512;
+#else
+  return false;
+#endif
+}
+
+void group_integer_sweep(GroupInteger& a) {
+#if defined(__x86_64__) && defined(__GNUC__)
+  if (cpu_isa() == Isa::avx512) return group_integer_sweep_avx512(a);
+#endif
+  (void)a;
+  throw std::logic_error("sampler: the integer-field lock-step kernel needs AVX-512");
 }
 
 const char* group_kernel_isa() {

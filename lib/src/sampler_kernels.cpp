@@ -20,6 +20,11 @@ void add_scaled(double* __restrict y, const double* __restrict x, double a, std:
 }
 
 SPINFER_WIDE_CLONES
+void add_column(std::int32_t* __restrict y, const std::int32_t* __restrict x, std::int64_t n) {
+  for (std::int64_t j = 0; j < n; ++j) y[j] += x[j];
+}
+
+SPINFER_WIDE_CLONES
 std::int64_t count_equal(const double* x, double value, std::int64_t n) {
   std::int64_t count = 0;
   for (std::int64_t j = 0; j < n; ++j) count += x[j] == value;

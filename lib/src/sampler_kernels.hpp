@@ -20,6 +20,9 @@ namespace spinfer::detail {
 /// y[j] += a x[j] for j in [0, n).
 void add_scaled(double* __restrict y, const double* __restrict x, double a, std::int64_t n);
 
+/// y[j] += x[j] for j in [0, n) (integer fields, integer_fields.hpp).
+void add_column(std::int32_t* __restrict y, const std::int32_t* __restrict x, std::int64_t n);
+
 /// The number of j in [0, n) with x[j] == value.
 std::int64_t count_equal(const double* x, double value, std::int64_t n);
 

@@ -490,8 +490,32 @@ TEST_CASE("sampler: energies are those of the kept states; Gibbs and Metropolis 
   for (int i = 0; i < 40; ++i) CHECK(agree(g.means.value(i), g.means.error(i), mh.means.value(i), mh.means.error(i)));
   CHECK(mh.diagnostics.mean_acceptance_rate > g.diagnostics.mean_acceptance_rate);  // Metropolis flips more
   const SampleSet s = sample(m, o);
+  // Dense couplings run on integer fields: the sampled model is (h, J) rounded to multiples of
+  // the resolution 2^-s, s the largest <= 40 with 2^s max_i (|h_i| + sum_j |J_ij|) <= 2^30 - (N + 1)
+  // (integer_fields.hpp), and the kept energies are that model's, exactly. Against the model as
+  // given they differ by at most (N + N (N - 1) / 2) 2^-(s+1) (each term moved by <= 2^-(s+1)).
+  const double resolution = s.diagnostics.field_resolution;
+  REQUIRE(resolution > 0);
+  double widest = 0;
+  for (int i = 0; i < 40; ++i) widest = std::max(widest, std::abs(m.fields(i)) + m.couplings.row(i).cwiseAbs().sum());
+  int scale = 40;
+  while (std::ldexp(widest, scale) > std::ldexp(1.0, 30) - 41) --scale;
+  CHECK(resolution == std::ldexp(1.0, -scale));
+  IsingModel rounded = m;
+  auto round_to_grid = [&](double x) { return std::ldexp(double(std::lround(std::ldexp(x, scale))), -scale); };
+  rounded.fields = m.fields.unaryExpr(round_to_grid);
+  rounded.couplings = m.couplings.unaryExpr(round_to_grid);
+  const double bound = (40 + 40 * 39 / 2) * resolution / 2;
+  for (std::int64_t t = 0; t < 50; ++t) {
+    CHECK(s.energies[std::size_t(t)] == doctest::Approx(energy(rounded, s.samples.row(t))).epsilon(1e-12));
+    CHECK(std::abs(s.energies[std::size_t(t)] - energy(m, s.samples.row(t))) <= bound);
+  }
+  // Sparse storage keeps double fields: the energies are the given model's.
+  o.storage = "sparse";
+  const SampleSet sparse = sample(m, o);
+  CHECK(sparse.diagnostics.field_resolution == 0);
   for (std::int64_t t = 0; t < 50; ++t)
-    CHECK(s.energies[std::size_t(t)] == doctest::Approx(energy(m, s.samples.row(t))).epsilon(1e-10));
+    CHECK(sparse.energies[std::size_t(t)] == doctest::Approx(energy(m, sparse.samples.row(t))).epsilon(1e-10));
 }
 
 TEST_CASE("sampler: parallel tempering crosses between the two phases of a cold ferromagnet") {

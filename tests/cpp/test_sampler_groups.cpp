@@ -3,8 +3,9 @@
 // samples, energies and counters must be the same bits in any group, with any group size (partly
 // filled groups, chains that stop one step before the others), on any thread count, across the
 // periodic recomputation of the fields (every 1024 sweeps). Models cover each kernel: dense
-// couplings (N = 5 and 13, and N = 141: several blocks of deferred field updates, two draw batches, a
-// row tail), CSR couplings, uniform couplings with degree 2, 4, 6 and one above the byte-shuffle
+// couplings on integer fields in groups of up to 16 (N = 5 and 13, N = 141: several blocks, three
+// draw batches, a partial last block; N = 300: row additions in two passes of 256 and 48 units),
+// dense couplings whose sums need double fields (the deferred double kernel), CSR couplings, uniform couplings with degree 2, 4, 6 and one above the byte-shuffle
 // table (degree 8: 17 levels, the portable loop), both conventions, heat bath and Metropolis,
 // sequential and coloured scans. Uniform couplings run in groups of up to 64 chains: every group size from 1
 // to 64 and groups of uneven sizes are checked, and ties of the 16-bit draw (one update in 2^16,
@@ -26,7 +27,7 @@ using namespace spinfer;
 
 namespace {
 
-IsingModel random_dense(int N, Convention c, std::uint64_t seed) {
+IsingModel random_dense(int N, Convention c, std::uint64_t seed, double scale = 0.5) {
   Rng rng(seed, 0);
   IsingModel m;
   m.convention = c;
@@ -34,7 +35,7 @@ IsingModel random_dense(int N, Convention c, std::uint64_t seed) {
   m.couplings = Eigen::MatrixXd::Zero(N, N);
   for (int i = 0; i < N; ++i) m.fields(i) = 0.6 * (2 * rng.uniform() - 1);
   for (int i = 0; i < N; ++i)
-    for (int j = i + 1; j < N; ++j) m.couplings(i, j) = m.couplings(j, i) = 0.5 * (2 * rng.uniform() - 1);
+    for (int j = i + 1; j < N; ++j) m.couplings(i, j) = m.couplings(j, i) = scale * (2 * rng.uniform() - 1);
   return m;
 }
 
@@ -118,6 +119,10 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
     // Several blocks of deferred field updates, a row tail (N mod 8) and two draw chunks (128).
     cases.push_back({"dense 141" + conv, random_dense(141, c, 5), "dense"});
     cases.push_back({"dense 5" + conv, random_dense(5, c, 7), "dense"});  // rows only in the tail
+    // Several 256-unit passes of the integer kernel's row additions, a partial last block.
+    cases.push_back({"dense 300" + conv, random_dense(300, c, 9, 0.05), "dense"});
+    // Coupling sums beyond 2^10: no integer fields (the double kernels), in groups of up to 8.
+    cases.push_back({"wide dense" + conv, random_dense(13, c, 11, 200.0), "dense"});
     cases.push_back({"csr" + conv, uneven_ring(21, c), "sparse"});
     cases.push_back({"uniform degree 2" + conv, ring(19, 1, 0.7, 0.2, c), "sparse"});
     cases.push_back({"uniform degree 4" + conv, ring(23, 2, 0.35, -0.1, c), "sparse"});
@@ -150,8 +155,12 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
           const SampleSet alone = run(k.model, o, false).set;
           CHECK(alone.diagnostics.lock_step_groups == 0);
           const SampleSet grouped = run(k.model, o, true).set;
-          // One thread: groups of 8 + 7 chains, or all 15 in one uniform-coupling group.
-          CHECK(grouped.diagnostics.lock_step_groups == (k.name.rfind("uniform", 0) == 0 ? 1 : 2));
+          // One thread: all 15 in one uniform-coupling group or one integer-field group (dense
+          // couplings; AVX-512 only, elsewhere those chains run alone), else groups of 8 + 7.
+          const bool integer = k.name.rfind("dense", 0) == 0;
+          CHECK((grouped.diagnostics.field_resolution > 0) == integer);
+          CHECK(grouped.diagnostics.lock_step_groups ==
+                (k.name.rfind("uniform", 0) == 0 ? 1 : integer ? (std::string(isa) == "avx512" ? 1 : 0) : 2));
           check_same(alone, grouped);
           o.threads = 2;
           check_same(alone, run(k.model, o, true).set);

@@ -4,15 +4,21 @@
 // beyond the table; and the uniform-coupling kernels' split draw (16 bits, then 37 more on a tie)
 // against the direct 53-bit comparison m < T; and the dense lock-step kernel's draw-side brackets
 // (DrawBrackets): an argument beyond a cell's bound must give the exact test's outcome for every
-// draw of the cell.
+// draw of the cell; and the integer-field kernels' bounds on integer fields (IntegerBounds), which
+// must decide as the exact test for every draw of a cell.
 #include <doctest/doctest.h>
 
 #include <algorithm>
+#include <climits>
 #include <cmath>
 #include <cstdint>
+#include <limits>
 #include <vector>
 
+#include <Eigen/Dense>
+
 #include "../../lib/src/draw_brackets.hpp"
+#include "../../lib/src/integer_fields.hpp"
 #include "../../lib/src/sampler_kernels.hpp"
 #include "spinfer/rng.hpp"
 
@@ -179,4 +185,121 @@ TEST_CASE("draw brackets: an argument beyond a cell's bound decides as the exact
     undecided += !(x >= active || x <= inactive);
   }
   CHECK(double(undecided) / double(pairs) < 0.01);
+}
+
+TEST_CASE("integer fields: integer bounds decide as the exact test, and the 16-bit draw with its tie stream is the 53-bit test") {
+  // IntegerBounds turn the draw brackets into bounds on an integer field w (argument c w,
+  // c = beta span 2^-s): w >= pass[cell] must give the exact test's "pass" and w <= fail[cell]
+  // its "fail" for every 53-bit draw m of the cell (checked at the cell's extreme draws, where
+  // the exact test, monotone in m, is tightest), for several scales and temperatures, heat bath
+  // and Metropolis. integer_decide must equal the exact test on m = d 2^37 + e, e the top 37 bits
+  // of the tie stream's next output, stepping the tie stream exactly when the bounds do not decide.
+  constexpr int cell_bits = 53 - DrawBrackets::kBits;
+  Rng rng(21, 0);
+  for (const int scale : {20, 25, 33})
+    for (const double beta : {0.05, 1.0, 7.5})
+      for (const std::int32_t lo : {-1, 0})
+        for (const bool gibbs : {true, false}) {
+          INFO("scale " << scale << ", beta " << beta << ", lo " << lo << (gibbs ? ", heat bath" : ", Metropolis"));
+          IntegerModel m;
+          m.scale = scale;
+          m.lo = lo;
+          m.hi = 1;
+          const IntegerBounds b = integer_bounds(m, beta, gibbs);
+          CHECK(b.c == std::ldexp(beta * double(1 - lo), -scale));
+          auto exact = [&](std::int32_t w, std::uint64_t draw) {
+            const double x = b.c * double(w);
+            return gibbs ? AcceptanceTable::exact_heat_bath(x, draw) : AcceptanceTable::exact_metropolis(-x, draw);
+          };
+          for (std::int64_t c = 0; c < DrawBrackets::kCells; ++c) {
+            const std::uint64_t first = std::uint64_t(c) << cell_bits, last = first + (std::uint64_t(1) << cell_bits) - 1;
+            // Bounds beyond the int32 range are clamped to it (no field comes near: |w| < 2^30).
+            CHECK((b.fail[c] < b.pass[c] || b.pass[c] == INT32_MIN || b.fail[c] == INT32_MAX));
+            for (const std::uint64_t draw : {first, last}) {
+              if (b.pass[c] < INT32_MAX) CHECK(exact(b.pass[c], draw));
+              if (b.fail[c] > INT32_MIN) CHECK(!exact(b.fail[c], draw));
+            }
+          }
+          // Random fields and 16-bit draws against the 53-bit test, tie stream in step.
+          std::uint64_t tie[4] = {rng.next(), rng.next(), rng.next(), rng.next()}, shadow[4];
+          std::copy(tie, tie + 4, shadow);
+          const double reach = 12.0 / b.c;  // |x| up to 12
+          std::int64_t ties = 0;
+          for (int i = 0; i < 20000; ++i) {
+            const auto w = std::int32_t(std::clamp((rng.uniform() * 2 - 1) * reach, -1e9, 1e9));
+            const auto d = std::uint32_t(rng.next() >> 48);
+            const std::uint32_t cell = d >> (16 - DrawBrackets::kBits);
+            const bool bounded = w >= b.pass[cell] || w <= b.fail[cell];
+            const bool got = integer_decide(b, w, d, tie);
+            const std::uint64_t e = bounded ? 0 : tie_bits(shadow);
+            if (!bounded) {
+              ++ties;
+              CHECK(got == exact(w, std::uint64_t(d) << 37 | e));
+            } else {
+              // Decided by the bounds: the exact test agrees for every e.
+              CHECK(got == exact(w, std::uint64_t(d) << 37));
+              CHECK(got == exact(w, std::uint64_t(d) << 37 | ((std::uint64_t(1) << 37) - 1)));
+            }
+            CHECK(std::equal(tie, tie + 4, shadow));
+          }
+          CHECK(ties > 0);
+          CHECK(ties < 20000 / 50);  // our cost bound: the exact test stays rare
+        }
+}
+
+TEST_CASE("integer fields: the rounded model, its layout, exact fields and energies, and the fallback") {
+  const int N = 37;
+  Rng rng(5, 0);
+  Eigen::VectorXd h(N);
+  Eigen::MatrixXd J = Eigen::MatrixXd::Zero(N, N);
+  for (int i = 0; i < N; ++i) h(i) = 3 * rng.uniform() - 1.5;
+  for (int i = 0; i < N; ++i)
+    for (int j = i + 1; j < N; ++j) J(i, j) = J(j, i) = 0.4 * (2 * rng.uniform() - 1);
+  std::vector<std::int32_t> order(N);
+  for (int p = 0; p < N; ++p) order[std::size_t(p)] = std::int32_t((p * 7) % N);  // a permutation (gcd(7, 37) = 1)
+  for (const std::int32_t lo : {-1, 0}) {
+    const auto m = quantise(h, J.data(), N, lo, 1, order);
+    REQUIRE(m.has_value());
+    // s: the largest (<= 40) with 2^s max_i (|h_i| + sum_j |J_ij|) <= 2^30 - (N + 1).
+    const double widest = (h.cwiseAbs() + J.cwiseAbs().rowwise().sum()).maxCoeff();
+    CHECK(std::ldexp(widest, m->scale) <= std::ldexp(1.0, 30) - (N + 1));
+    CHECK(std::ldexp(widest, m->scale + 1) > std::ldexp(1.0, 30) - (N + 1));
+    CHECK(m->NP == 48);
+    const double r = m->resolution();
+    const std::int32_t span = 1 - lo;
+    for (int p = 0; p < N; ++p) {
+      const int k = order[std::size_t(p)];
+      CHECK(m->unit[std::size_t(p)] == k);
+      CHECK(std::abs(m->fields[std::size_t(p)] * r - h(k)) <= r / 2);
+      for (int q = 0; q < N; ++q) {
+        const std::int32_t x = m->columns[std::size_t(p * m->NP + q)];
+        CHECK(x % span == 0);
+        CHECK(std::abs(x / span * r - J(order[std::size_t(q)], k)) <= r / 2);
+        CHECK(m->columns[std::size_t((N + p) * m->NP + q)] == -x);
+      }
+      for (std::int64_t q = N; q < m->NP; ++q) CHECK(m->columns[std::size_t(p * m->NP + q)] == 0);
+    }
+    // Fields and energy of a state against the rounded model in doubles (exact here: every
+    // product and partial sum is a multiple of 2^-s far below 2^53 units).
+    std::vector<double> v(N);
+    for (auto& x : v) x = (rng.next() >> 63) ? 1.0 : double(lo);
+    AlignedVector<std::int32_t> H(std::size_t(m->NP), 7);
+    std::int64_t E2 = 0;
+    integer_fields(*m, v.data(), H.data(), &E2);
+    double E = 0;
+    for (int p = 0; p < N; ++p) {
+      const int k = order[std::size_t(p)];
+      double field = m->fields[std::size_t(p)] * r;
+      for (int q = 0; q < N; ++q) field += m->columns[std::size_t(q * m->NP + p)] / span * r * v[std::size_t(order[std::size_t(q)])];
+      CHECK(H[std::size_t(p)] * r == field);
+      E -= 0.5 * v[std::size_t(k)] * (field + m->fields[std::size_t(p)] * r);
+    }
+    for (std::int64_t p = N; p < m->NP; ++p) CHECK(H[std::size_t(p)] == 0);
+    CHECK(m->energy(E2) == doctest::Approx(E).epsilon(1e-14));
+  }
+  // Row sums beyond 2^10 would need a resolution coarser than 2^-20: no integer fields.
+  J(0, 1) = J(1, 0) = 1500.0;
+  CHECK(!quantise(h, J.data(), N, -1, 1, {}).has_value());
+  J(0, 1) = J(1, 0) = std::numeric_limits<double>::infinity();
+  CHECK(!quantise(h, J.data(), N, -1, 1, {}).has_value());
 }

@@ -75,7 +75,15 @@ def test_sample_output_and_energies():
         assert set(np.unique(s)) <= values
         v = s.astype(float)
         E = -v @ h - 0.5 * np.einsum("si,ij,sj->s", v, J, v)
-        np.testing.assert_allclose(d["energy"], E, rtol=1e-10, atol=1e-10)
+        # Dense couplings are sampled with integer fields: the energies are exactly those of the
+        # model rounded to multiples of the resolution r = 2^-s (half away from zero, as C's
+        # lround), within (N + N (N - 1) / 2) r / 2 of the given model's.
+        r = d["field_resolution"]
+        assert 0 < r <= 2.0**-20
+        grid = lambda x: np.trunc(x / r + np.copysign(0.5, x)) * r
+        Er = -v @ grid(h) - 0.5 * np.einsum("si,ij,sj->s", v, grid(J), v)
+        np.testing.assert_allclose(d["energy"], Er, rtol=1e-12, atol=1e-12)
+        assert np.max(np.abs(d["energy"] - E)) <= (12 + 12 * 11 / 2) * r / 2
         np.testing.assert_array_equal(d["chain"], np.repeat([0, 1, 2], 333))
         assert d["storage"] == "dense" and d["method"] == "metropolis"
         assert len(d["acceptance_rate"]) == 3

@@ -34,13 +34,25 @@
 // random stream Rng(seed, c), so a seed gives identical samples for every thread count. Chains
 // start from independent uniformly random states (or all-active / all-inactive states).
 // Without parallel tempering and with the sequential or coloured scan, the chains of a thread run
-// in lock-step groups of up to 8 (at least one group per thread when there are enough chains;
-// groups of fewer than 3 chains, or 7 for the coloured scan on uniform couplings, are not worth
-// forming and those chains run alone):
+// in lock-step groups of up to 8, or 16 on dense couplings with integer fields (below; AVX-512
+// CPUs only), or 64 on uniform couplings (at least one group per thread when there are enough
+// chains; groups of fewer than 3 chains, or 7 for the coloured scan on uniform couplings, are not
+// worth forming and those chains run alone):
 // the group's chains update the same unit together, their draws, fields and accept decisions
 // held as vectors across the chains. Every chain still does its own arithmetic in the same order,
 // so its samples are the same bits in any group and for any number of chains, threads or ranks;
-// grouping only changes the speed (8 chains per thread make full groups).
+// grouping only changes the speed (16 chains per thread make full groups on dense models).
+//
+// Integer fields (dense couplings): the couplings and fields are rounded once to multiples of a
+// resolution 2^-s (s the largest <= 40 that keeps every |h_i| + sum_j |J_ij| below 2^30 units)
+// and the local fields are exact int32 sums in those units, so the order of the additions does
+// not matter and a group may add a block of flips in any order. The sampled model is the rounded
+// one: each h_i and J_ij moves by at most 2^-(s+1) (s = 25, 1.5e-8, for an N = 200 model with
+// couplings of size 1/sqrt(N)), and kept energies are the rounded model's, within
+// (N + N (N - 1) / 2) 2^-(s+1) of the given model's. Models that would need s < 20 (fields or
+// coupling sums beyond about 1000) keep double fields. SamplerDiagnostics::field_resolution
+// reports 2^-s (0: double fields). Updates then take 16 random bits (53 on about one update in
+// a thousand), as on uniform couplings; the probabilities are those of the exact tests.
 //
 // Burn-in and thinning (in sweeps). A negative value means automatic: a pilot run of
 // `pilot_sweeps` sweeps per chain records the energy after every sweep, and the integrated
@@ -108,6 +120,9 @@ struct SamplerDiagnostics {
   std::string method, scan;
   std::string storage;                 ///< "dense" or "sparse" (what was used)
   double coupling_density = 0;         ///< fraction of non-zero off-diagonal couplings
+  /// Dense couplings are sampled with exact integer fields in units of this resolution (2^-s,
+  /// see "Integer fields" above; the sampled model is the one rounded to it); 0: double fields.
+  double field_resolution = 0;
   std::int64_t units = 0;
   std::int64_t chains = 0;
   std::int64_t burn_in = 0;            ///< sweeps discarded per chain before the first kept sample
