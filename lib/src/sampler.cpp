@@ -387,10 +387,21 @@ class Engine {
   /// A kept sample: the mean value and (if `active` is not null) the active bits by unit. Every
   /// value is lo or hi, so the sum of the values is the integer (count of hi) hi + (rest) lo, the
   /// same double as the sum in any order; counting vectorises where the sum would not. Replicas of
-  /// a uniform-coupling group are read from the group's transposed bytes.
+  /// a uniform-coupling group are read from the group's transposed bytes, those of an
+  /// integer-field group from the group's values by position.
   double kept_state(const Replica& r, std::uint8_t* active) const {
-    std::int64_t high;
-    if (r.packed) {
+    std::int64_t high = 0;
+    if (r.by_position) {
+      // An integer-field group's member: read its byte column directly (v stays behind).
+      const std::int8_t* x = r.by_position + r.lane;
+      const std::int32_t* unit = integer_->unit.data();
+      const auto hi = std::int8_t(hi_);
+      for (std::int64_t p = 0; p < N_; ++p) {
+        const bool is_high = x[p * kIntegerWidth] == hi;
+        high += is_high;
+        if (active) active[unit[p]] = is_high;
+      }
+    } else if (r.packed) {
       const std::int8_t* x = unpacked(r);
       high = count_equal(x, std::int8_t(hi_), N_);
       if (active) mark_unequal(x, std::int8_t(lo_), coloured_ ? order_.data() : nullptr, active, N_);

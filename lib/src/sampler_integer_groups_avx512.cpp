@@ -128,6 +128,11 @@ template <bool kGibbs, bool kFull>
 [[gnu::always_inline]] inline void run_block(GroupInteger& a, std::int64_t b0, std::int64_t n_, const std::uint64_t* d0,
                                              SweepSums& sums) {
   const std::int64_t n = kFull ? kBlock : n_, NP = a.NP;
+  // Locals, so the stores below do not make the compiler reload them.
+  const std::int32_t* __restrict pass_at = a.pass;
+  const std::int32_t* __restrict fail_at = a.fail;
+  const std::int32_t* __restrict columns = a.columns;
+  std::int8_t* __restrict values = a.V;
   const __mmask16 active = __mmask16(a.active);
   const __m512i zero = _mm512_setzero_si512(), one = _mm512_set1_epi32(1), low16 = _mm512_set1_epi32(0xffff);
   const __m128i hi8 = _mm_set1_epi8(a.hi), lo8 = _mm_set1_epi8(a.lo);
@@ -137,24 +142,29 @@ template <bool kGibbs, bool kFull>
   transpose16(P);
   // Per lane: bit q for a flip up at position b0 + q, bit 16 + q for a flip down.
   __m512i flips = zero;
+  __m512i low_words = zero, high_words = zero;  // the 32-bit halves of the current draw words
 #pragma GCC unroll 16
   for (std::int64_t q = 0; q < n; ++q) {
-    const std::uint64_t* d = d0 + (q >> 2) * L;
-    const unsigned shift = unsigned(16 * (q & 3));
-    const __m512i piece = _mm512_and_si512(
-        _mm512_inserti64x4(_mm512_castsi256_si512(_mm512_cvtepi64_epi32(_mm512_srli_epi64(_mm512_loadu_si512(d), shift))),
-                           _mm512_cvtepi64_epi32(_mm512_srli_epi64(_mm512_loadu_si512(d + 8), shift)), 1),
-        low16);
+    if ((q & 3) == 0) {
+      // Four positions' 16-bit pieces from one draw word per lane (bits 16 (q % 4) upwards).
+      const __m512i w0 = _mm512_loadu_si512(d0 + (q >> 2) * L), w1 = _mm512_loadu_si512(d0 + (q >> 2) * L + 8);
+      low_words = _mm512_inserti64x4(_mm512_castsi256_si512(_mm512_cvtepi64_epi32(w0)), _mm512_cvtepi64_epi32(w1), 1);
+      high_words = _mm512_inserti64x4(_mm512_castsi256_si512(_mm512_cvtepi64_epi32(_mm512_srli_epi64(w0, 32))),
+                                      _mm512_cvtepi64_epi32(_mm512_srli_epi64(w1, 32)), 1);
+    }
+    const __m512i word = (q & 2) ? high_words : low_words;
+    const __m512i piece = (q & 1) ? _mm512_srli_epi32(word, 16) : _mm512_and_si512(word, low16);
     const __m512i cell = _mm512_srli_epi32(piece, 16 - DrawBrackets::kBits);
-    std::int8_t* row = a.V + (b0 + q) * L;
+    std::int8_t* row = values + (b0 + q) * L;
     const __m128i old = _mm_load_si128(reinterpret_cast<const __m128i*>(row));
     const __mmask16 was_high = _mm_cmpeq_epi8_mask(old, hi8);
     // Metropolis: w = -H where the unit is high (w >= 0: the flip lowers the energy).
     const __m512i w = kGibbs ? P[q] : _mm512_mask_sub_epi32(P[q], was_high, zero, P[q]);
-    __mmask16 pass = _mm512_cmpge_epi32_mask(w, _mm512_i32gather_epi32(cell, a.pass, 4));
-    const __mmask16 fail = _mm512_cmple_epi32_mask(w, _mm512_i32gather_epi32(cell, a.fail, 4));
-    const unsigned open = unsigned(active) & ~unsigned(pass | fail) & 0xffffu;
-    if (__builtin_expect(open != 0, 0)) {
+    __mmask16 pass = _mm512_cmpge_epi32_mask(w, _mm512_i32gather_epi32(cell, pass_at, 4));
+    const __mmask16 fail = _mm512_cmple_epi32_mask(w, _mm512_i32gather_epi32(cell, fail_at, 4));
+    const __mmask16 open_lanes = _kandn_mask16(_kor_mask16(pass, fail), active);
+    if (__builtin_expect(!_ktestz_mask16_u8(open_lanes, open_lanes), 0)) {
+      const unsigned open = _cvtmask16_u32(open_lanes);
       alignas(64) std::int32_t w_lanes[L];
       alignas(64) std::uint32_t d_lanes[L];
       _mm512_store_si512(w_lanes, w);
@@ -172,7 +182,7 @@ template <bool kGibbs, bool kFull>
     sums.moved_hi = _mm512_add_epi64(sums.moved_hi, _mm512_cvtepi32_epi64(_mm512_extracti64x4_epi64(moved, 1)));
     sums.flips = _mm512_mask_add_epi32(sums.flips, __mmask16(up | down), sums.flips, one);
     // The block's later fields see this flip now.
-    const std::int32_t* col = a.columns + (b0 + q) * NP + b0;
+    const std::int32_t* col = columns + (b0 + q) * NP + b0;
 #pragma GCC unroll 16
     for (std::int64_t p = q + 1; p < n; ++p) {
       const __m512i c = _mm512_set1_epi32(col[p]);
