@@ -168,8 +168,11 @@ struct Group {
   std::vector<std::uint16_t> pieces;
   // Integer fields (sampler_integer_groups.hpp): the members' generators (tie streams in `ties`),
   // their values by position [N][16], and NP readable fields for the empty lanes.
+  // `unpacked` (above) holds the values by lane for kept samples, rewritten when not
+  // `unpacked_fresh` (after each step).
   std::unique_ptr<IntegerLanes> integer_lanes;
   std::vector<std::int8_t> lane_values;
+  bool unpacked_fresh = false;
   AlignedVector<std::int32_t> spare_fields;
 };
 
@@ -392,15 +395,17 @@ class Engine {
   double kept_state(const Replica& r, std::uint8_t* active) const {
     std::int64_t high = 0;
     if (r.by_position) {
-      // An integer-field group's member: read its byte column directly (v stays behind).
-      const std::int8_t* x = r.by_position + r.lane;
-      const std::int32_t* unit = integer_->unit.data();
-      const auto hi = std::int8_t(hi_);
-      for (std::int64_t p = 0; p < N_; ++p) {
-        const bool is_high = x[p * kIntegerWidth] == hi;
-        high += is_high;
-        if (active) active[unit[p]] = is_high;
+      // An integer-field group's member: its row of the group's values by lane, transposed once
+      // per step for all members (v stays behind).
+      Group& g = *r.group;
+      const std::int64_t stride = std::int64_t(g.unpacked.size()) / kIntegerWidth;
+      if (!g.unpacked_fresh) {
+        group_integer_unpack(g.lane_values.data(), N_, g.unpacked.data(), stride);
+        g.unpacked_fresh = true;
       }
+      const std::int8_t* x = g.unpacked.data() + r.lane * stride;
+      high = count_equal(x, std::int8_t(hi_), N_);
+      if (active) mark_unequal(x, std::int8_t(lo_), coloured_ ? order_.data() : nullptr, active, N_);
     } else if (r.packed) {
       const std::int8_t* x = unpacked(r);
       high = count_equal(x, std::int8_t(hi_), N_);
@@ -469,6 +474,8 @@ class Engine {
       g.lane_values.assign(std::size_t(N_ * kIntegerWidth), std::int8_t(lo_));
       g.draws.assign(std::size_t(kIntegerChunk / 4 * kIntegerWidth), 0);
       g.spare_fields.assign(std::size_t(integer_->NP), 0);
+      // Rows of NP + 64 bytes: lanes a power of two apart would share L1 sets.
+      g.unpacked.assign(std::size_t((integer_->NP + 64) * kIntegerWidth), 0);
       for (std::size_t m = 0; m < g.members.size(); ++m) {
         Chain& c = chains[g.members[m]];
         for (std::size_t w = 0; w < 4; ++w) {
@@ -480,6 +487,7 @@ class Engine {
           g.lane_values[std::size_t(p * kIntegerWidth) + m] = std::int8_t(r.v[std::size_t(integer_->unit[std::size_t(p)])]);
         r.by_position = g.lane_values.data();
         r.lane = std::int64_t(m);
+        r.group = &g;
       }
     } else {
       const auto W = std::size_t(kGroupWidth);
@@ -614,6 +622,7 @@ class Engine {
     a.ties = reinterpret_cast<std::uint64_t(*)[4]>(g.ties.data());
     a.draws = g.draws.data();
     group_integer_sweep(a);
+    g.unpacked_fresh = false;
     for (std::size_t m = 0; m < n; ++m) {
       Chain& c = chains[g.members[m]];
       if (active >> m & 1) {

@@ -21,6 +21,7 @@ void group_uniform_unpack_avx2(const UniformLine*, std::int64_t, std::int8_t*, s
 void group_general_sweep_avx2(GroupGeneral&);
 void group_uniform_sweep_avx512(GroupUniform&);
 void group_integer_sweep_avx512(GroupInteger&);
+void group_integer_unpack_avx512(const std::int8_t*, std::int64_t, std::int8_t*, std::int64_t);
 void group_uniform_unpack_avx512(const UniformLine*, std::int64_t, std::int8_t*, std::int64_t);
 void group_general_sweep_avx512(GroupGeneral&);
 #endif
@@ -99,6 +100,14 @@ void group_integer_sweep(GroupInteger& a) {
 #endif
   (void)a;
   throw std::logic_error("sampler: the integer-field lock-step kernel needs AVX-512");
+}
+
+void group_integer_unpack(const std::int8_t* V, std::int64_t n, std::int8_t* out, std::int64_t stride) {
+#if defined(__x86_64__) && defined(__GNUC__)
+  if (cpu_isa() == Isa::avx512) return group_integer_unpack_avx512(V, n, out, stride);
+#endif
+  for (std::int64_t p = 0; p < n; ++p)
+    for (std::int64_t l = 0; l < kIntegerWidth; ++l) out[l * stride + p] = V[p * kIntegerWidth + l];
 }
 
 const char* group_kernel_isa() {

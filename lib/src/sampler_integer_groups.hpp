@@ -66,6 +66,10 @@ constexpr std::int64_t kIntegerChunk = 64;
 /// stream, then the heat-bath or Metropolis test with argument c w.
 bool integer_exact(double c, bool gibbs, std::int32_t w, std::uint32_t d, std::uint64_t* tie);
 
+/// The lanes' values by lane: out[l stride + p] = V[p 16 + l] for l < 16, p < n (stride >= n
+/// rounded up to a multiple of 16). Once per kept sample for all of a group's chains.
+void group_integer_unpack(const std::int8_t* V, std::int64_t n, std::int8_t* out, std::int64_t stride);
+
 /// Whether this CPU runs the kernel (and group_kernel_isa() is "avx512").
 bool group_integer_available();
 

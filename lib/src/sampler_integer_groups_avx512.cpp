@@ -235,6 +235,25 @@ void sweep(GroupInteger& a) {
 
 void group_integer_sweep_avx512(GroupInteger& a) { a.gibbs ? sweep<true>(a) : sweep<false>(a); }
 
+void group_integer_unpack_avx512(const std::int8_t* V, std::int64_t n, std::int8_t* out, std::int64_t stride) {
+  // 16 x 16 byte transpositions: rows of 16 lanes at 16 positions -> 16 positions of each lane.
+  for (std::int64_t p0 = 0; p0 < n; p0 += 16) {
+    __m128i r[16];
+    for (int i = 0; i < 16; ++i)
+      r[i] = p0 + i < n ? _mm_load_si128(reinterpret_cast<const __m128i*>(V + (p0 + i) * L)) : _mm_setzero_si128();
+    // Four perfect shuffles (byte unpacks of rows i and i + 8 into rows 2i and 2i + 1) transpose.
+    for (int round = 0; round < 4; ++round) {
+      __m128i t[16];
+      for (int i = 0; i < 8; ++i) {
+        t[2 * i] = _mm_unpacklo_epi8(r[i], r[i + 8]);
+        t[2 * i + 1] = _mm_unpackhi_epi8(r[i], r[i + 8]);
+      }
+      for (int i = 0; i < 16; ++i) r[i] = t[i];
+    }
+    for (int l = 0; l < 16; ++l) _mm_storeu_si128(reinterpret_cast<__m128i*>(out + l * stride + p0), r[l]);
+  }
+}
+
 #endif
 
 }  // namespace spinfer::detail
