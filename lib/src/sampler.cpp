@@ -225,8 +225,10 @@ class Engine {
     if (!c.sparse) {
       const std::vector<std::int32_t> none;
       integer_ = quantise(h_, c.dense.data(), N_, std::int32_t(lo_), std::int32_t(hi_), coloured_ ? order_ : none);
-      if (integer_)
+      if (integer_) {
         for (double beta : betas_) integer_bounds_.push_back(integer_bounds(*integer_, beta, gibbs_));
+        couplings_.dense = AlignedVector<double>();  // only the double kernels read it
+      }
     }
     if (uniform_) {
       K_ = c.value[0];
