@@ -176,6 +176,19 @@ struct Group {
   AlignedVector<std::int32_t> spare_fields;
 };
 
+/// A group's generators are held [state word][generator][lane] (GroupLanes, UniformLanes,
+/// IntegerLanes): lane m from chain c's own (Lanes), or from a saved copy of the group's.
+template <class GroupGenerators>
+void take_generators(GroupGenerators& g, std::size_t m, const Lanes& from) {
+  for (std::size_t w = 0; w < 4; ++w)
+    for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.s[w][l][m] = from.s[w][l];
+}
+template <class GroupGenerators>
+void restore_generators(GroupGenerators& g, std::size_t m, const GroupGenerators& saved) {
+  for (std::size_t w = 0; w < 4; ++w)
+    for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.s[w][l][m] = saved.s[w][l][m];
+}
+
 class Engine {
  public:
   Engine(const IsingModel& model, const SamplerOptions& o, std::vector<double> ladder)
@@ -455,10 +468,8 @@ class Engine {
       g.unpacked.assign(std::size_t(((N_ + 7) / 8 * 8 + 72) * kUniformWidth), 0);
       for (std::size_t m = 0; m < g.members.size(); ++m) {
         Chain& c = chains[g.members[m]];
-        for (std::size_t w = 0; w < 4; ++w) {
-          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.wide->s[w][l][m] = c.lanes.s[w][l];
-          g.ties[m][w] = c.tie[w];
-        }
+        take_generators(*g.wide, m, c.lanes);
+        std::copy(std::begin(c.tie), std::end(c.tie), g.ties[m].begin());
         Replica& r = c.replicas[0];
         values(r);
         r.packed = g.packed.data();
@@ -480,10 +491,8 @@ class Engine {
       g.unpacked.assign(std::size_t((integer_->NP + 64) * kIntegerWidth), 0);
       for (std::size_t m = 0; m < g.members.size(); ++m) {
         Chain& c = chains[g.members[m]];
-        for (std::size_t w = 0; w < 4; ++w) {
-          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.integer_lanes->s[w][l][m] = c.lanes.s[w][l];
-          g.ties[m][w] = c.tie[w];
-        }
+        take_generators(*g.integer_lanes, m, c.lanes);
+        std::copy(std::begin(c.tie), std::end(c.tie), g.ties[m].begin());
         Replica& r = c.replicas[0];
         for (std::int64_t p = 0; p < N_; ++p)
           g.lane_values[std::size_t(p * kIntegerWidth) + m] = std::int8_t(r.v[std::size_t(integer_->unit[std::size_t(p)])]);
@@ -494,11 +503,7 @@ class Engine {
     } else {
       const auto W = std::size_t(kGroupWidth);
       g.draws.assign(std::size_t(kGroupChunk) * W, 0);
-      for (std::size_t m = 0; m < g.members.size(); ++m) {
-        const Chain& c = chains[g.members[m]];
-        for (std::size_t w = 0; w < 4; ++w)
-          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.lanes.s[w][l][m] = c.lanes.s[w][l];
-      }
+      for (std::size_t m = 0; m < g.members.size(); ++m) take_generators(g.lanes, m, chains[g.members[m]].lanes);
       g.spare.assign(std::size_t(N_), 0.0);
     }
   }
@@ -587,8 +592,7 @@ class Engine {
         c.replicas[0].E = a.E[m];
         end_group_step(c, a.flips[m]);
       } else {
-        for (std::size_t w = 0; w < 4; ++w)
-          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.lanes.s[w][l][m] = saved.s[w][l][m];
+        restore_generators(g.lanes, m, saved);
       }
     }
   }
@@ -634,8 +638,7 @@ class Engine {
         r.v_behind = true;
         end_group_step(c, a.flips[m]);
       } else {
-        for (std::size_t w = 0; w < 4; ++w)
-          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.integer_lanes->s[w][l][m] = saved->s[w][l][m];
+        restore_generators(*g.integer_lanes, m, *saved);
       }
     }
   }
