@@ -121,6 +121,9 @@ TEST_CASE("lock-step groups: every chain gives the bits it gives alone") {
     cases.push_back({"dense 5" + conv, random_dense(5, c, 7), "dense"});  // rows only in the tail
     // Several 256-unit passes of the integer kernel's row additions, a partial last block.
     cases.push_back({"dense 300" + conv, random_dense(300, c, 9, 0.05), "dense"});
+    // Dense storage of a ring: the coloured scan's order is not the identity (3 colours), so
+    // the integer fields are held in a permuted order.
+    cases.push_back({"dense ring" + conv, uneven_ring(21, c), "dense"});
     // Coupling sums beyond 2^10: no integer fields (the double kernels), in groups of up to 8.
     cases.push_back({"wide dense" + conv, random_dense(13, c, 11, 200.0), "dense"});
     cases.push_back({"csr" + conv, uneven_ring(21, c), "sparse"});
