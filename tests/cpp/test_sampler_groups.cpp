@@ -4,8 +4,9 @@
 // filled groups, chains that stop one step before the others), on any thread count, across the
 // periodic recomputation of the fields (every 1024 sweeps). Models cover each kernel: dense
 // couplings on integer fields in groups of up to 16 (N = 5 and 13, N = 141: several blocks, three
-// draw batches, a partial last block; N = 300: row additions in two passes of 256 and 48 units),
-// dense couplings whose sums need double fields (the deferred double kernel), CSR couplings, uniform couplings with degree 2, 4, 6 and one above the byte-shuffle
+// draw batches, a partial last block; N = 300: row additions in two passes of 256 and 48 units;
+// a dense-storage ring: the coloured scan's permuted order), dense couplings whose sums need
+// double fields (the deferred double kernel), CSR couplings, uniform couplings with degree 2, 4, 6 and one above the byte-shuffle
 // table (degree 8: 17 levels, the portable loop), both conventions, heat bath and Metropolis,
 // sequential and coloured scans. Uniform couplings run in groups of up to 64 chains: every group size from 1
 // to 64 and groups of uneven sizes are checked, and ties of the 16-bit draw (one update in 2^16,
