@@ -110,10 +110,11 @@ struct Replica {
   mutable bool stale = false;
   AlignedVector<double> H;  // local fields h_i + sum_j J_ij v_j
   std::vector<std::int32_t> small;  // uniform couplings: v by scan position, then a 0 (padding)
-  // Uniform couplings in a lock-step group: the values live at packed[position].v[lane] (the
-  // group's storage) instead of `small`. Engine::values transposes them for all the group's
-  // stale replicas at once (Group::unpacked, by scan position; kept samples are read from there)
-  // and marks v as behind (`v_behind`) until it is read.
+  // In a lock-step group of uniform couplings or integer fields (`group` set) the values live in
+  // the group's storage (uniform: packed[position].v[lane], instead of `small`; integer fields:
+  // Group::lane_values). Engine::unpacked transposes them for all the group's stale replicas at
+  // once (Group::unpacked, by scan position; kept samples are read from there) and marks v as
+  // behind (`v_behind`) until it is read.
   UniformLine* packed = nullptr;
   mutable bool v_behind = false;
   std::int64_t lane = 0;
@@ -123,9 +124,6 @@ struct Replica {
   // 2^-s, and the energy in units of 2^-(s+1) (E is its double value); H is not used then.
   AlignedVector<std::int32_t> Hq;
   std::int64_t E2 = 0;
-  // In an integer-field group the values live at by_position[p * 16 + lane] (the group's
-  // storage); values() rewrites v from there when v_behind.
-  const std::int8_t* by_position = nullptr;
 };
 
 struct Chain {
@@ -163,16 +161,13 @@ struct Group {
   std::vector<std::array<std::uint64_t, 4>> ties;
   std::vector<UniformLine> packed;
   std::vector<Replica*> replicas;     // the members' replicas
-  std::vector<std::int8_t> unpacked;  // values by lane (group_uniform_unpack)
+  std::vector<std::int8_t> unpacked;  // values by lane (group_uniform_unpack, group_integer_unpack)
   std::vector<UniformWords> words;
   std::vector<std::uint16_t> pieces;
   // Integer fields (sampler_integer_groups.hpp): the members' generators (tie streams in `ties`),
   // their values by position [N][16], and NP readable fields for the empty lanes.
-  // `unpacked` (above) holds the values by lane for kept samples, rewritten when not
-  // `unpacked_fresh` (after each step).
   std::unique_ptr<IntegerLanes> integer_lanes;
   std::vector<std::int8_t> lane_values;
-  bool unpacked_fresh = false;
   AlignedVector<std::int32_t> spare_fields;
 };
 
@@ -352,9 +347,12 @@ class Engine {
   /// samples are kept at the same steps (the other members' rows are rewritten unchanged).
   const std::int8_t* unpacked(const Replica& r) const {
     Group& g = *r.group;
-    const std::int64_t stride = std::int64_t(g.unpacked.size()) / kUniformWidth;
+    const std::int64_t stride = std::int64_t(g.unpacked.size()) / (integer_ ? kIntegerWidth : kUniformWidth);
     if (r.stale) {
-      group_uniform_unpack(g.packed.data(), N_, g.unpacked.data(), stride);
+      if (integer_)
+        group_integer_unpack(g.lane_values.data(), N_, g.unpacked.data(), stride);
+      else
+        group_uniform_unpack(g.packed.data(), N_, g.unpacked.data(), stride);
       for (const Replica* s : g.replicas)
         if (s->stale) {
           s->stale = false;
@@ -364,18 +362,10 @@ class Engine {
     return g.unpacked.data() + r.lane * stride;
   }
 
-  /// Sets the replica to the given active bits (N of them) and recomputes its fields and energy.
-  /// The replica's unit values (by unit), brought up to date from the uniform kernel's copy.
+  /// The replica's unit values (by unit), brought up to date from the group's or the uniform
+  /// kernel's copy.
   const std::vector<double>& values(const Replica& r) const {
-    if (r.by_position) {
-      if (r.v_behind) {
-        const std::int32_t* unit = integer_->unit.data();
-        for (std::int64_t p = 0; p < N_; ++p) r.v[std::size_t(unit[p])] = double(r.by_position[p * kIntegerWidth + r.lane]);
-        r.v_behind = false;
-      }
-      return r.v;
-    }
-    if (r.packed) {
+    if (r.group) {
       const std::int8_t* from = unpacked(r);
       if (r.v_behind) {
         double* to = r.v.data();
@@ -396,6 +386,7 @@ class Engine {
     return r.v;
   }
 
+  /// Sets the replica to the given active bits (N of them) and recomputes its fields and energy.
   void load(Replica& r, const std::uint8_t* active) const {
     for (std::int64_t k = 0; k < N_; ++k) r.v[std::size_t(k)] = active[k] ? hi_ : lo_;
     r.stale = false;
@@ -405,23 +396,10 @@ class Engine {
   /// A kept sample: the mean value and (if `active` is not null) the active bits by unit. Every
   /// value is lo or hi, so the sum of the values is the integer (count of hi) hi + (rest) lo, the
   /// same double as the sum in any order; counting vectorises where the sum would not. Replicas of
-  /// a uniform-coupling group are read from the group's transposed bytes, those of an
-  /// integer-field group from the group's values by position.
+  /// a uniform-coupling or integer-field group are read from the group's transposed bytes.
   double kept_state(const Replica& r, std::uint8_t* active) const {
-    std::int64_t high = 0;
-    if (r.by_position) {
-      // An integer-field group's member: its row of the group's values by lane, transposed once
-      // per step for all members (v stays behind).
-      Group& g = *r.group;
-      const std::int64_t stride = std::int64_t(g.unpacked.size()) / kIntegerWidth;
-      if (!g.unpacked_fresh) {
-        group_integer_unpack(g.lane_values.data(), N_, g.unpacked.data(), stride);
-        g.unpacked_fresh = true;
-      }
-      const std::int8_t* x = g.unpacked.data() + r.lane * stride;
-      high = count_equal(x, std::int8_t(hi_), N_);
-      if (active) mark_unequal(x, std::int8_t(lo_), coloured_ ? order_.data() : nullptr, active, N_);
-    } else if (r.packed) {
+    std::int64_t high;
+    if (r.group) {
       const std::int8_t* x = unpacked(r);
       high = count_equal(x, std::int8_t(hi_), N_);
       if (active) mark_unequal(x, std::int8_t(lo_), coloured_ ? order_.data() : nullptr, active, N_);
@@ -496,9 +474,10 @@ class Engine {
         Replica& r = c.replicas[0];
         for (std::int64_t p = 0; p < N_; ++p)
           g.lane_values[std::size_t(p * kIntegerWidth) + m] = std::int8_t(r.v[std::size_t(integer_->unit[std::size_t(p)])]);
-        r.by_position = g.lane_values.data();
         r.lane = std::int64_t(m);
         r.group = &g;
+        r.stale = true;  // Group::unpacked is filled on the first read
+        g.replicas.push_back(&r);
       }
     } else {
       const auto W = std::size_t(kGroupWidth);
@@ -514,11 +493,8 @@ class Engine {
     const std::size_t n = g.members.size();
     const std::uint64_t all = n == 64 ? ~std::uint64_t(0) : (std::uint64_t(1) << n) - 1;
     // Chains that sit this step out keep their generators (the kernel steps them with the others).
-    std::vector<std::uint64_t> saved;
-    for (std::size_t m = 0; m < n && active != all; ++m)
-      if (!(active >> m & 1))
-        for (std::size_t w = 0; w < 4; ++w)
-          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) saved.push_back(g.wide->s[w][l][m]);
+    std::unique_ptr<UniformLanes> saved;
+    if (active != all) saved = std::make_unique<UniformLanes>(*g.wide);
     GroupUniform a;
     a.x = g.packed.data();
     a.nb = nb_.data();
@@ -539,12 +515,10 @@ class Engine {
     a.words = g.words.data();
     a.pieces = g.pieces.data();
     group_uniform_sweep(a);
-    std::size_t at = 0;
     for (std::size_t m = 0; m < n; ++m) {
       Chain& c = chains[g.members[m]];
       if (!(active >> m & 1)) {
-        for (std::size_t w = 0; w < 4; ++w)
-          for (std::size_t l = 0; l < std::size_t(Lanes::kWidth); ++l) g.wide->s[w][l][m] = saved[at++];
+        restore_generators(*g.wide, m, *saved);
         continue;
       }
       Replica& r = c.replicas[0];
@@ -628,14 +602,13 @@ class Engine {
     a.ties = reinterpret_cast<std::uint64_t(*)[4]>(g.ties.data());
     a.draws = g.draws.data();
     group_integer_sweep(a);
-    g.unpacked_fresh = false;
     for (std::size_t m = 0; m < n; ++m) {
       Chain& c = chains[g.members[m]];
       if (active >> m & 1) {
         Replica& r = c.replicas[0];
         r.E2 = a.E2[m];
         r.E = im.energy(r.E2);
-        r.v_behind = true;
+        r.stale = true;
         end_group_step(c, a.flips[m]);
       } else {
         restore_generators(*g.integer_lanes, m, *saved);

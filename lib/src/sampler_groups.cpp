@@ -94,20 +94,26 @@ bool group_integer_available() {
 #endif
 }
 
+// Integer-field groups are formed only where group_integer_available(), so their kernels have no
+// portable copy.
+[[noreturn]] static void no_integer_kernel() {
+  throw std::logic_error("sampler: the integer-field lock-step kernel needs AVX-512");
+}
+
 void group_integer_sweep(GroupInteger& a) {
 #if defined(__x86_64__) && defined(__GNUC__)
   if (cpu_isa() == Isa::avx512) return group_integer_sweep_avx512(a);
 #endif
   (void)a;
-  throw std::logic_error("sampler: the integer-field lock-step kernel needs AVX-512");
+  no_integer_kernel();
 }
 
 void group_integer_unpack(const std::int8_t* V, std::int64_t n, std::int8_t* out, std::int64_t stride) {
 #if defined(__x86_64__) && defined(__GNUC__)
   if (cpu_isa() == Isa::avx512) return group_integer_unpack_avx512(V, n, out, stride);
 #endif
-  for (std::int64_t p = 0; p < n; ++p)
-    for (std::int64_t l = 0; l < kIntegerWidth; ++l) out[l * stride + p] = V[p * kIntegerWidth + l];
+  (void)V, (void)n, (void)out, (void)stride;
+  no_integer_kernel();
 }
 
 const char* group_kernel_isa() {

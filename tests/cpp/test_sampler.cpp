@@ -7,6 +7,7 @@
 #include <cmath>
 #include <vector>
 
+#include "random_models.hpp"
 #include "spinfer/chain_diagnostics.hpp"
 #include "spinfer/errors.hpp"
 #include "spinfer/rng.hpp"
@@ -75,15 +76,7 @@ Exact enumerate(const IsingModel& m, double T) {
 }
 
 IsingModel random_model(int N, Convention c, std::uint64_t seed, double h_scale, double j_scale) {
-  Rng rng(seed, 0);
-  IsingModel m;
-  m.convention = c;
-  m.fields = Eigen::VectorXd(N);
-  m.couplings = Eigen::MatrixXd::Zero(N, N);
-  for (int i = 0; i < N; ++i) m.fields(i) = h_scale * (2 * rng.uniform() - 1);
-  for (int i = 0; i < N; ++i)
-    for (int j = i + 1; j < N; ++j) m.couplings(i, j) = m.couplings(j, i) = j_scale * (2 * rng.uniform() - 1);
-  return m;
+  return testing::uniform_random_model(N, c, seed, h_scale, j_scale);
 }
 
 /// Periodic L x L square lattice, coupling K between nearest neighbours, no field, spins.

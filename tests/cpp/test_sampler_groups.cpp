@@ -21,6 +21,7 @@
 #include "../../lib/src/sampler_engine.hpp"
 #include "../../lib/src/sampler_groups.hpp"
 #include "../../lib/src/sampler_kernels.hpp"
+#include "random_models.hpp"
 #include "spinfer/rng.hpp"
 #include "spinfer/sampler.hpp"
 
@@ -29,15 +30,7 @@ using namespace spinfer;
 namespace {
 
 IsingModel random_dense(int N, Convention c, std::uint64_t seed, double scale = 0.5) {
-  Rng rng(seed, 0);
-  IsingModel m;
-  m.convention = c;
-  m.fields = Eigen::VectorXd(N);
-  m.couplings = Eigen::MatrixXd::Zero(N, N);
-  for (int i = 0; i < N; ++i) m.fields(i) = 0.6 * (2 * rng.uniform() - 1);
-  for (int i = 0; i < N; ++i)
-    for (int j = i + 1; j < N; ++j) m.couplings(i, j) = m.couplings(j, i) = scale * (2 * rng.uniform() - 1);
-  return m;
+  return testing::uniform_random_model(N, c, seed, 0.6, scale);
 }
 
 /// Ring of N units, each coupled with value K to its `reach` nearest units on either side
